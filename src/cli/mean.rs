@@ -1,0 +1,144 @@
+//! `lacuna mean`: one scheme, one trial set, one mean.
+
+use std::io::IsTerminal;
+use std::path::PathBuf;
+use std::sync::Arc;
+use std::time::Instant;
+
+use clap::Args;
+use lacuna::diagnose::{identifiability, summarize};
+use lacuna::report::json::MeanReport;
+use lacuna::schemes::InitRule;
+use lacuna::solve::StopRule;
+use lacuna::trials::io::{load_trial_set, write_matrix};
+use lacuna::trials::npy::write_atomic;
+use lacuna::{scheme_by_name, LacunaError, Result, SchemeOptions};
+
+#[derive(Args, Debug)]
+pub struct MeanArgs {
+    /// Covariance stack: NPY float64 of shape (N, p, p). Rows/columns of
+    /// unobserved channels may be NaN (then --mask may be omitted).
+    #[arg(long, value_name = "STACK.npy")]
+    covs: PathBuf,
+    /// Observation mask: NPY uint8/bool (N, p) or CSV with a header of channel
+    /// names and one 0/1 row per trial (1 = observed).
+    #[arg(long, value_name = "MASK")]
+    mask: Option<PathBuf>,
+    /// Averaging scheme; `lacuna schemes` lists them.
+    #[arg(long, default_value = "airm-observed", value_name = "NAME")]
+    scheme: String,
+    /// Where to write the mean: .npy (float64 p×p) or .csv (header of channel names).
+    #[arg(long, value_name = "MEAN")]
+    out: PathBuf,
+    /// Also write a JSON report (convergence, coverage, co-observation, …).
+    #[arg(long, value_name = "REPORT.json")]
+    report: Option<PathBuf>,
+    /// Trial weights: NPY float64 (N,) or a one-column CSV. Default: equal.
+    #[arg(long, value_name = "FILE")]
+    weights: Option<PathBuf>,
+    /// Stop when the relative Riemannian gradient norm is at or below this.
+    #[arg(long, default_value_t = 1e-10)]
+    tol: f64,
+    /// Give up after this many iterations (the mean is still written; exit 4).
+    #[arg(long, default_value_t = 500)]
+    max_iter: usize,
+    /// Starting point of airm-observed: available-case, diagonal or scaled-identity.
+    #[arg(long, default_value = "available-case")]
+    init: String,
+    /// Run airm-observed from this many starting points and report whether
+    /// they agree (the masked cost can have several local minima).
+    #[arg(long, default_value_t = 1)]
+    starts: usize,
+    /// Seed for the random extra starts.
+    #[arg(long, default_value_t = 0)]
+    seed: u64,
+    /// Leave out channels that no trial observed instead of refusing.
+    #[arg(long)]
+    drop_unobserved: bool,
+    /// Worker threads (default: all cores). Results do not depend on it.
+    #[arg(long)]
+    threads: Option<usize>,
+    /// Print nothing on stderr except errors.
+    #[arg(long)]
+    quiet: bool,
+    /// Print the JSON report on stdout as well.
+    #[arg(long)]
+    json: bool,
+}
+
+pub fn run(a: MeanArgs) -> Result<i32> {
+    let scheme = scheme_by_name(&a.scheme).ok_or_else(|| {
+        let names: Vec<&str> = lacuna::all_schemes().iter().map(|s| s.name()).collect();
+        LacunaError::InvalidOption(format!("unknown scheme '{}'; choose one of: {}", a.scheme, names.join(", ")))
+    })?;
+    let init = InitRule::from_name(&a.init)
+        .ok_or_else(|| LacunaError::InvalidOption(format!("unknown --init '{}'; choose available-case, diagonal or scaled-identity", a.init)))?;
+    if !(a.tol > 0.0) || a.max_iter == 0 || a.starts == 0 || a.threads == Some(0) {
+        return Err(LacunaError::InvalidOption("--tol must be positive; --max-iter, --starts and --threads at least 1".into()));
+    }
+    if let Some(n) = a.threads {
+        let _ = rayon::ThreadPoolBuilder::new().num_threads(n).build_global();
+    }
+    let started = Instant::now();
+    let mut set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
+    let mut dropped = Vec::new();
+    let ident0 = identifiability(&set);
+    if a.drop_unobserved && !ident0.never_observed.is_empty() {
+        dropped = ident0.never_observed.iter().map(|&c| set.channels()[c].clone()).collect();
+        set = set.without_channels(&ident0.never_observed)?;
+    }
+    let ident = identifiability(&set);
+    let show_progress = !a.quiet && std::io::stderr().is_terminal();
+    let observer: Option<Arc<dyn Fn(&lacuna::solve::IterRecord) + Send + Sync>> = if show_progress {
+        Some(Arc::new(|r: &lacuna::solve::IterRecord| {
+            eprint!("\r  iteration {:>4}  cost {:.6e}  gradient {:.3e}   ", r.iteration, r.cost, r.gradient_norm);
+        }))
+    } else {
+        None
+    };
+    let options = SchemeOptions { stop: StopRule { tol: a.tol, max_iter: a.max_iter }, init, starts: a.starts, seed: a.seed, observer };
+    let result = scheme.average(&set, &options)?;
+    if show_progress {
+        eprintln!();
+    }
+    let elapsed = started.elapsed().as_secs_f64();
+    write_matrix(&a.out, &result.mean, set.channels())?;
+    let summary = summarize(&set, &result.mean);
+    let report = MeanReport::new(&result, &ident, &summary, set.channels(), set.len(), dropped.clone(), elapsed, rayon::current_num_threads());
+    let json = report.to_json();
+    if let Some(path) = &a.report {
+        write_atomic(path, json.as_bytes())?;
+    }
+    if a.json {
+        println!("{json}");
+    }
+    let d = &result.diagnostics;
+    if !a.quiet {
+        let incomplete = (0..set.len()).filter(|&i| !set.is_complete(i)).count();
+        eprintln!("lacuna mean: {} trials ({incomplete} incomplete), {} channels, scheme {}", set.len(), set.n_channels(), result.scheme);
+        if !dropped.is_empty() {
+            eprintln!("  dropped channels observed in no trial: {}", dropped.join(", "));
+        }
+        if d.iterative {
+            eprintln!(
+                "  {} after {} iterations: gradient norm {:.2e} (tolerance {:.0e}), cost {:.6e}",
+                if d.converged { "converged" } else { "NOT converged" },
+                d.iterations,
+                d.gradient_norm.unwrap_or(f64::NAN),
+                a.tol,
+                d.cost.unwrap_or(f64::NAN)
+            );
+        }
+        for n in &d.notes {
+            eprintln!("  note: {n}");
+        }
+        eprintln!("  condition number {:.3e}, log det {:.4}; wrote {}", summary.condition_number, summary.log_det_mean, a.out.display());
+    }
+    if !d.converged {
+        for line in report.advice {
+            eprintln!("warning: {line}");
+        }
+        return Ok(4);
+    }
+    Ok(0)
+}

@@ -1,0 +1,11 @@
+//! Diagnostics computed from a trial set and a mean, never from a scheme's
+//! internals: identifiability (co-observation), completion of unconstrained
+//! entries, coverage, conditioning and the determinant ("swelling") check.
+
+pub mod completion;
+pub mod identifiability;
+
+pub use completion::max_det_completion;
+pub use identifiability::{Identifiability, identifiability};
+pub mod summary;
+pub use summary::{summarize, MeanSummary};

@@ -1,0 +1,31 @@
+//! # lacuna
+//!
+//! Riemannian means of channel covariance matrices when trials lose channels.
+//!
+//! Multichannel recordings (EEG, MEG, intracranial, other sensor arrays) are
+//! often summarised per trial by a channel covariance matrix and averaged on
+//! the manifold of symmetric positive definite matrices. When a trial loses
+//! channels its covariance is rank-deficient on the full channel set; lacuna
+//! keeps only each trial's observed sub-block and fits a full-size mean to
+//! those blocks ([`schemes::AirmObserved`]), beside the usual alternatives,
+//! all behind one trait ([`schemes::AveragingScheme`]).
+//!
+//! Data flow: [`trials`] (validated trial set) → [`schemes`] (means, using
+//! [`solve`] and [`spd`]) → [`diagnose`] → [`report`].
+//!
+//! Research software, not a medical device: results inform analysis; they do
+//! not diagnose. Follow local rules and licensed clinical practice.
+
+pub mod diagnose;
+pub mod error;
+pub mod report;
+pub mod schemes;
+pub mod simulate;
+pub mod solve;
+pub mod spd;
+pub mod trials;
+
+pub use error::{LacunaError, Result};
+pub use schemes::{all_schemes, scheme_by_name, AveragingScheme, MeanResult, SchemeOptions};
+pub use spd::Mat;
+pub use trials::TrialSet;

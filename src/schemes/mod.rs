@@ -1,0 +1,190 @@
+//! Averaging schemes: one question — "what is the mean covariance of these
+//! trials?" — answered many ways on the same data.
+//!
+//! Every scheme implements [`AveragingScheme`]: it takes the validated
+//! [`TrialSet`] and [`SchemeOptions`] and returns a full-size `p×p` SPD mean
+//! with its own [`Diagnostics`]. Diagnostics and selection code read these
+//! results; they never reach into a scheme's internals.
+//!
+//! To add a scheme: write a file here with a unit struct implementing the
+//! trait, then list it in [`all_schemes`] (see DEVELOPERS.md).
+
+mod airm_observed;
+mod closed_form;
+mod karcher;
+
+use std::sync::Arc;
+
+pub use airm_observed::{AirmObserved, InitRule, MaskedKarcherProblem};
+pub use closed_form::{Arithmetic, Harmonic, LogEuclidean};
+pub use karcher::{Karcher, KarcherProblem};
+
+use crate::error::Result;
+use crate::solve::{IterRecord, Solution, StopReason, StopRule};
+use crate::spd::Mat;
+use crate::trials::TrialSet;
+
+/// Options shared by all schemes (each uses what applies to it).
+#[derive(Clone)]
+pub struct SchemeOptions {
+    /// Stopping rule for iterative schemes.
+    pub stop: StopRule,
+    /// Starting point rule for the masked mean.
+    pub init: InitRule,
+    /// Number of starts for the masked mean's multi-start check (1 = off).
+    pub starts: usize,
+    /// Seed for anything random (extra starts).
+    pub seed: u64,
+    /// Called after every accepted iteration (progress display).
+    pub observer: Option<Arc<dyn Fn(&IterRecord) + Send + Sync>>,
+}
+
+impl Default for SchemeOptions {
+    fn default() -> Self {
+        SchemeOptions { stop: StopRule::default(), init: InitRule::AvailableCase, starts: 1, seed: 0, observer: None }
+    }
+}
+
+impl std::fmt::Debug for SchemeOptions {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("SchemeOptions")
+            .field("stop", &self.stop)
+            .field("init", &self.init)
+            .field("starts", &self.starts)
+            .field("seed", &self.seed)
+            .finish()
+    }
+}
+
+/// One start of a multi-start run.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct StartOutcome {
+    /// How the start was made.
+    pub init: String,
+    /// Final cost from that start.
+    pub cost: f64,
+    /// Iterations it took.
+    pub iterations: usize,
+    /// Whether it met the tolerance.
+    pub converged: bool,
+    /// Affine-invariant distance of its result to the reported mean.
+    pub distance_to_reported: f64,
+}
+
+/// What a scheme reports about how it got its mean.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct Diagnostics {
+    /// True for iterative schemes.
+    pub iterative: bool,
+    /// For iterative schemes: the stopping rule on the gradient was met.
+    /// Closed-form schemes are always `true`.
+    pub converged: bool,
+    /// Why the solver stopped (iterative schemes only).
+    pub stop_reason: Option<StopReason>,
+    /// Accepted iterations (0 for closed forms).
+    pub iterations: usize,
+    /// Cost evaluations, line-search trials included.
+    pub evaluations: usize,
+    /// Final value of the scheme's own cost, if it has one.
+    pub cost: Option<f64>,
+    /// Final whitened Riemannian gradient norm (iterative schemes).
+    pub gradient_norm: Option<f64>,
+    /// The tolerance the gradient norm was held to.
+    pub tolerance: Option<f64>,
+    /// Per-iteration trace.
+    pub trace: Vec<IterRecord>,
+    /// What the scheme had to assume or change, in words.
+    pub notes: Vec<String>,
+    /// Channel pairs `[a, b]` (a < b) that no trial observes together.
+    pub unconstrained_pairs: Vec<[usize; 2]>,
+    /// How many of those the scheme filled by max-determinant completion.
+    pub completed_pairs: usize,
+    /// Multi-start outcomes, when asked for.
+    pub starts: Vec<StartOutcome>,
+    /// Whether all starts reached the same mean (None when only one start).
+    pub starts_agree: Option<bool>,
+}
+
+impl Diagnostics {
+    /// Diagnostics of a closed-form scheme.
+    pub fn closed_form(notes: Vec<String>) -> Self {
+        Diagnostics {
+            iterative: false,
+            converged: true,
+            stop_reason: None,
+            iterations: 0,
+            evaluations: 0,
+            cost: None,
+            gradient_norm: None,
+            tolerance: None,
+            trace: Vec::new(),
+            notes,
+            unconstrained_pairs: Vec::new(),
+            completed_pairs: 0,
+            starts: Vec::new(),
+            starts_agree: None,
+        }
+    }
+
+    /// Diagnostics from a solver run.
+    pub fn from_solution(sol: &Solution, tol: f64) -> Self {
+        Diagnostics {
+            iterative: true,
+            converged: sol.converged(),
+            stop_reason: Some(sol.reason),
+            iterations: sol.iterations,
+            evaluations: sol.evaluations,
+            cost: Some(sol.cost),
+            gradient_norm: Some(sol.gradient_norm),
+            tolerance: Some(tol),
+            trace: sol.trace.clone(),
+            ..Diagnostics::closed_form(Vec::new())
+        }
+    }
+}
+
+/// A scheme's answer: the full-size mean and how it was obtained.
+#[derive(Debug, Clone)]
+pub struct MeanResult {
+    /// Scheme name.
+    pub scheme: String,
+    /// The `p×p` SPD mean, over the trial set's channels.
+    pub mean: Mat,
+    /// How it was obtained.
+    pub diagnostics: Diagnostics,
+}
+
+/// The one question every scheme answers.
+pub trait AveragingScheme: Sync + Send {
+    /// Name used on the command line and in reports.
+    fn name(&self) -> &'static str;
+    /// One sentence for `--help` and reports.
+    fn summary(&self) -> &'static str;
+    /// Whether the scheme accepts trials with unobserved channels.
+    fn handles_missing(&self) -> bool;
+    /// Computes the mean.
+    fn average(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult>;
+}
+
+/// Every scheme lacuna knows, in the order they are listed to users.
+pub fn all_schemes() -> Vec<Box<dyn AveragingScheme>> {
+    vec![Box::new(AirmObserved), Box::new(Karcher), Box::new(LogEuclidean), Box::new(Arithmetic), Box::new(Harmonic)]
+}
+
+/// Looks a scheme up by name.
+pub fn scheme_by_name(name: &str) -> Option<Box<dyn AveragingScheme>> {
+    all_schemes().into_iter().find(|s| s.name() == name)
+}
+
+/// Weighted sum `Σ ŵ_i f(C_i)` over complete trials, reduced in a fixed order.
+pub(crate) fn weighted_sum(blocks: &[&Mat], weights: &[f64], f: impl Fn(&Mat) -> Mat + Sync + Send) -> Mat {
+    let p = blocks[0].nrows();
+    let parts = crate::solve::chunked(blocks.len(), 32, |r| {
+        let mut acc = Mat::zeros(p, p);
+        for i in r {
+            acc += f(blocks[i]) * weights[i];
+        }
+        acc
+    });
+    parts.into_iter().fold(Mat::zeros(p, p), |a, b| a + b)
+}

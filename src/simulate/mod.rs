@@ -1,0 +1,5 @@
+//! Generators for tests, benchmarks and the demo data. Everything is
+//! deterministic from a seed.
+
+pub mod rng;
+pub mod stacks;

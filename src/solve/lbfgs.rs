@@ -1,0 +1,136 @@
+//! Riemannian L-BFGS with an Armijo backtracking line search.
+//!
+//! Algorithm: the two-loop recursion of Nocedal & Wright (2006, *Numerical
+//! Optimization*, Alg. 7.4) run on whitened tangent vectors, where the
+//! affine-invariant metric is Euclidean and parallel transport is the
+//! identity (see the module above). Riemannian L-BFGS with this structure is
+//! analysed by Huang, Gallivan & Absil (2015, "A Broyden class of quasi-Newton
+//! methods for Riemannian optimization", SIAM J. Optim.). Safeguards that make
+//! every step a descent step even on non-convex costs:
+//! - a pair `(s, y)` enters the memory only if `⟨s, y⟩ > 1e-10 ‖s‖ ‖y‖`
+//!   (the cautious update of Li & Fukushima 2001);
+//! - a direction that is not a descent direction resets the memory;
+//! - the Armijo condition `F(t) ≤ F(0) + 1e-4 t ⟨g, d⟩` accepts a step, with
+//!   an allowance of a few ulps of `F(0)` so that rounding near the optimum
+//!   does not stall the search (documented in docs/methods.md).
+
+use std::collections::VecDeque;
+
+use super::{frob, Evaluation, IterRecord, Solution, SpdProblem, StopReason, StopRule};
+use crate::spd::kernels::sym_eigen;
+use crate::spd::{Mat, symmetrize};
+
+const MEMORY: usize = 8;
+const ARMIJO_C1: f64 = 1e-4;
+const MAX_BACKTRACKS: usize = 40;
+
+/// Observer called after every accepted iterate (progress display).
+pub type Observer<'a> = &'a (dyn Fn(&IterRecord) + Sync);
+
+/// Minimises `problem` from `x0` (SPD). Returns `None` only when `x0` itself
+/// is not a valid point of the problem.
+pub fn minimize(problem: &dyn SpdProblem, x0: &Mat, rule: &StopRule, observer: Option<Observer<'_>>) -> Option<Solution> {
+    // Start from the symmetric square root: W = X^{1/2}.
+    let e0 = sym_eigen(&symmetrize(x0));
+    if e0.values.first().is_none_or(|&v| v <= 0.0) {
+        return None;
+    }
+    let mut w = e0.apply(f64::sqrt);
+    let mut w_inv = e0.apply(|v| 1.0 / v.sqrt());
+    let mut eval = problem.evaluate(&w, &w_inv)?;
+    let mut evaluations = 1;
+    let mut memory: VecDeque<(Mat, Mat, f64)> = VecDeque::with_capacity(MEMORY);
+    let mut trace = Vec::new();
+    let mut step = 0.0;
+    let mut iteration = 0;
+    let reason = loop {
+        let gnorm = frob(&eval.grad, &eval.grad).sqrt();
+        let rec = IterRecord { iteration, cost: eval.cost, gradient_norm: gnorm, step, evaluations };
+        if let Some(obs) = observer {
+            obs(&rec);
+        }
+        trace.push(rec);
+        if gnorm <= rule.tol {
+            break StopReason::Tolerance;
+        }
+        if iteration >= rule.max_iter {
+            break StopReason::MaxIterations;
+        }
+        let mut direction = two_loop(&eval, &memory);
+        let mut slope = frob(&eval.grad, &direction);
+        if !(slope < 0.0) {
+            memory.clear();
+            direction = two_loop(&eval, &memory);
+            slope = frob(&eval.grad, &direction);
+        }
+        // Backtracking along the geodesic X(t) = W exp(t d) Wᵀ.
+        let dir_eig = sym_eigen(&direction);
+        let allowance = 8.0 * f64::EPSILON * eval.cost.abs();
+        let mut t = 1.0;
+        let mut accepted = None;
+        for _ in 0..MAX_BACKTRACKS {
+            let half = dir_eig.apply(|v| (0.5 * t * v).exp());
+            let half_inv = dir_eig.apply(|v| (-0.5 * t * v).exp());
+            let w_new = &w * &half;
+            let w_inv_new = &half_inv * &w_inv;
+            evaluations += 1;
+            if let Some(e) = problem.evaluate(&w_new, &w_inv_new) {
+                if e.cost <= eval.cost + ARMIJO_C1 * t * slope + allowance {
+                    accepted = Some((w_new, w_inv_new, e));
+                    break;
+                }
+            }
+            t *= 0.5;
+        }
+        let Some((w_new, w_inv_new, e_new)) = accepted else {
+            break StopReason::LineSearchStalled;
+        };
+        let s = &direction * t;
+        let y = &e_new.grad - &eval.grad;
+        let sy = frob(&s, &y);
+        let (sn, yn) = (frob(&s, &s).sqrt(), frob(&y, &y).sqrt());
+        if sy > 1e-10 * sn * yn {
+            if memory.len() == MEMORY {
+                memory.pop_front();
+            }
+            memory.push_back((s, y, 1.0 / sy));
+        }
+        w = w_new;
+        w_inv = w_inv_new;
+        eval = e_new;
+        step = t;
+        iteration += 1;
+    };
+    let x = symmetrize(&(&w * w.transpose()));
+    Some(Solution {
+        x,
+        cost: eval.cost,
+        gradient_norm: frob(&eval.grad, &eval.grad).sqrt(),
+        iterations: iteration,
+        evaluations,
+        reason,
+        trace,
+    })
+}
+
+/// L-BFGS two-loop recursion: returns `-H g`. With an empty memory the
+/// initial inverse Hessian is the problem's step hint (or 1) times identity.
+fn two_loop(eval: &Evaluation, memory: &VecDeque<(Mat, Mat, f64)>) -> Mat {
+    let mut q = -eval.grad.clone();
+    let mut alphas = Vec::with_capacity(memory.len());
+    for (s, y, rho) in memory.iter().rev() {
+        let a = rho * frob(s, &q);
+        q -= y * a;
+        alphas.push(a);
+    }
+    let gamma = match memory.back() {
+        Some((s, y, _)) => frob(s, y) / frob(y, y),
+        None => eval.step_hint.unwrap_or(1.0),
+    };
+    q *= gamma;
+    for ((s, y, rho), a) in memory.iter().zip(alphas.iter().rev()) {
+        let b = rho * frob(y, &q);
+        q += s * (a - b);
+    }
+    symmetrize(&q)
+}

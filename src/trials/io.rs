@@ -1,0 +1,269 @@
+//! Reading trial sets and writing means, following the interchange contract
+//! (GUIDE §4, docs/formats.md).
+//!
+//! - covariance stack: NPY float64 `(N, p, p)`; unobserved rows/columns may
+//!   hold NaN (then the mask is inferred from NaN diagonals) or anything (then
+//!   a mask is required);
+//! - mask: NPY uint8/bool `(N, p)` or CSV with a header of channel names;
+//! - weights: NPY float64 `(N,)` or a one-column CSV;
+//! - a mean: NPY float64 `(p, p)` or CSV with a header of channel names,
+//!   chosen by the file extension and always written atomically.
+
+use std::path::Path;
+
+use super::npy::{self, NpyData};
+use super::{default_channel_names, Trial, TrialSet};
+use crate::error::{LacunaError, Result, TrialProblem};
+use crate::spd::Mat;
+
+fn format_err(path: &Path, message: impl Into<String>) -> LacunaError {
+    LacunaError::Format { path: path.to_path_buf(), message: message.into() }
+}
+
+fn is_csv(path: &Path) -> bool {
+    path.extension().is_some_and(|e| e.eq_ignore_ascii_case("csv"))
+}
+
+/// A covariance stack as read from disk: C-order data and its shape.
+pub struct Stack {
+    /// `N·p·p` values in C order.
+    pub data: Vec<f64>,
+    /// Number of trials.
+    pub n: usize,
+    /// Number of channels.
+    pub p: usize,
+}
+
+/// Reads an `(N, p, p)` float stack (a single `(p, p)` matrix is taken as N = 1).
+pub fn read_stack(path: &Path) -> Result<Stack> {
+    let arr = npy::read_npy(path)?;
+    let data = match arr.data {
+        NpyData::Float(v) => v,
+        NpyData::Byte(_) => return Err(format_err(path, format!("covariance stack must be float64, found dtype {}", arr.descr))),
+    };
+    let (n, p, q) = match arr.shape.as_slice() {
+        [n, p, q] => (*n, *p, *q),
+        [p, q] => (1, *p, *q),
+        s => return Err(format_err(path, format!("covariance stack must have shape (N, p, p), found {s:?}"))),
+    };
+    if p != q {
+        return Err(format_err(path, format!("matrices must be square, found {p}×{q}")));
+    }
+    if n == 0 || p == 0 {
+        return Err(format_err(path, "covariance stack is empty"));
+    }
+    Ok(Stack { data, n, p })
+}
+
+/// A mask as read from disk, with channel names when the file has them.
+pub struct MaskFile {
+    /// `N·p` row-major, true = observed.
+    pub observed: Vec<bool>,
+    /// Channel names from a CSV header.
+    pub channels: Option<Vec<String>>,
+}
+
+/// Reads a mask (NPY or CSV) and checks it against `(n, p)`.
+pub fn read_mask(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
+    if is_csv(path) {
+        return read_mask_csv(path, n, p);
+    }
+    let arr = npy::read_npy(path)?;
+    let bytes = match arr.data {
+        NpyData::Byte(v) => v,
+        NpyData::Float(_) => return Err(format_err(path, format!("mask must be uint8 or bool, found dtype {}", arr.descr))),
+    };
+    if arr.shape != [n, p] {
+        return Err(format_err(path, format!("mask shape {:?} does not match the stack: expected [{n}, {p}]", arr.shape)));
+    }
+    let mut observed = Vec::with_capacity(bytes.len());
+    for (k, &b) in bytes.iter().enumerate() {
+        match b {
+            0 => observed.push(false),
+            1 => observed.push(true),
+            v => return Err(format_err(path, format!("trial {}, channel {}: mask value {v} is not 0 or 1", k / p, k % p))),
+        }
+    }
+    Ok(MaskFile { observed, channels: None })
+}
+
+fn read_mask_csv(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
+    let mut rdr = csv::ReaderBuilder::new().has_headers(true).from_path(path).map_err(|e| format_err(path, e.to_string()))?;
+    let header: Vec<String> = rdr.headers().map_err(|e| format_err(path, e.to_string()))?.iter().map(|s| s.trim().to_string()).collect();
+    if header.len() != p {
+        return Err(format_err(path, format!("mask header names {} channels, the stack has {p}", header.len())));
+    }
+    let mut observed = Vec::with_capacity(n * p);
+    let mut rows = 0;
+    for (r, rec) in rdr.records().enumerate() {
+        let rec = rec.map_err(|e| format_err(path, format!("row {}: {e}", r + 2)))?;
+        if rec.len() != p {
+            return Err(format_err(path, format!("trial {r} (line {}): {} cells, expected {p}", r + 2, rec.len())));
+        }
+        for (c, cell) in rec.iter().enumerate() {
+            match cell.trim() {
+                "1" | "true" | "True" => observed.push(true),
+                "0" | "false" | "False" => observed.push(false),
+                other => return Err(format_err(path, format!("trial {r} (line {}), channel {}: '{other}' is not 0 or 1", r + 2, header[c]))),
+            }
+        }
+        rows += 1;
+    }
+    if rows != n {
+        return Err(format_err(path, format!("mask has {rows} trial rows, the stack has {n} trials")));
+    }
+    Ok(MaskFile { observed, channels: Some(header) })
+}
+
+/// Infers the mask from NaN diagonal entries: a channel whose variance is NaN
+/// in a trial is unobserved there.
+pub fn infer_mask(stack: &Stack) -> Vec<bool> {
+    let (n, p) = (stack.n, stack.p);
+    let mut m = Vec::with_capacity(n * p);
+    for i in 0..n {
+        for c in 0..p {
+            m.push(!stack.data[i * p * p + c * p + c].is_nan());
+        }
+    }
+    m
+}
+
+/// Reads trial weights: NPY float64 `(N,)` or a one-column CSV (header optional).
+pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
+    let w = if is_csv(path) {
+        let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read { path: path.to_path_buf(), source })?;
+        let mut out = Vec::new();
+        for (line_no, line) in text.lines().enumerate() {
+            let cell = line.trim();
+            if cell.is_empty() {
+                continue;
+            }
+            match cell.parse::<f64>() {
+                Ok(v) => out.push(v),
+                Err(_) if line_no == 0 => {} // header
+                Err(_) => return Err(format_err(path, format!("line {}: '{cell}' is not a number", line_no + 1))),
+            }
+        }
+        out
+    } else {
+        let arr = npy::read_npy(path)?;
+        match (arr.data, arr.shape.as_slice()) {
+            (NpyData::Float(v), [_]) => v,
+            _ => return Err(format_err(path, format!("weights must be float64 with shape (N,), found {} {:?}", arr.descr, arr.shape))),
+        }
+    };
+    if w.len() != n {
+        return Err(format_err(path, format!("{} weights for {n} trials", w.len())));
+    }
+    Ok(w)
+}
+
+/// Loads a trial set from a stack, an optional mask and optional weights.
+pub fn load_trial_set(covs: &Path, mask: Option<&Path>, weights: Option<&Path>) -> Result<TrialSet> {
+    let stack = read_stack(covs)?;
+    let (observed, channels) = match mask {
+        Some(m) => {
+            let f = read_mask(m, stack.n, stack.p)?;
+            (f.observed, f.channels)
+        }
+        None => (infer_mask(&stack), None),
+    };
+    let p = stack.p;
+    let channels = channels.unwrap_or_else(|| default_channel_names(p));
+    let trials: Vec<Trial> = (0..stack.n)
+        .map(|i| {
+            let obs: Vec<usize> = (0..p).filter(|&c| observed[i * p + c]).collect();
+            Trial::from_stack_row(&stack.data, p, i, obs)
+        })
+        .collect();
+    drop(stack);
+    let w = match weights {
+        Some(path) => Some(read_weights(path, trials.len())?),
+        None => None,
+    };
+    TrialSet::new(channels, trials, w, &covs.display().to_string()).map_err(|e| match e {
+        LacunaError::InvalidTrials { source_name, problems } if mask.is_none() => LacunaError::InvalidTrials {
+            source_name,
+            problems: with_mask_hint(problems),
+        },
+        other => other,
+    })
+}
+
+fn with_mask_hint(mut problems: Vec<TrialProblem>) -> Vec<TrialProblem> {
+    if problems.iter().any(|p| p.message.contains("NaN")) {
+        problems.push(TrialProblem {
+            trial: None,
+            channel: None,
+            message: "without --mask, a channel counts as unobserved only when its variance (diagonal entry) is NaN".into(),
+        });
+    }
+    problems
+}
+
+/// Serialises a `p×p` matrix as NPY (C order) or CSV with a header of channel names.
+pub fn encode_matrix(path: &Path, m: &Mat, channels: &[String]) -> Vec<u8> {
+    let p = m.nrows();
+    if is_csv(path) {
+        let mut s = channels.join(",");
+        s.push('\n');
+        for i in 0..p {
+            let row: Vec<String> = (0..p).map(|j| format!("{:.17e}", m[(i, j)])).collect();
+            s.push_str(&row.join(","));
+            s.push('\n');
+        }
+        s.into_bytes()
+    } else {
+        let data: Vec<f64> = (0..p * p).map(|k| m[(k / p, k % p)]).collect();
+        npy::encode_f64(&[p, p], &data)
+    }
+}
+
+/// Writes a mean atomically, NPY or CSV by extension.
+pub fn write_matrix(path: &Path, m: &Mat, channels: &[String]) -> Result<()> {
+    npy::write_atomic(path, &encode_matrix(path, m, channels))
+}
+
+/// Reads a `(p, p)` matrix from NPY or a CSV with a header row.
+pub fn read_matrix(path: &Path) -> Result<Mat> {
+    if is_csv(path) {
+        let mut rdr = csv::Reader::from_path(path).map_err(|e| format_err(path, e.to_string()))?;
+        let p = rdr.headers().map_err(|e| format_err(path, e.to_string()))?.len();
+        let mut vals = Vec::new();
+        for (r, rec) in rdr.records().enumerate() {
+            let rec = rec.map_err(|e| format_err(path, e.to_string()))?;
+            for (c, cell) in rec.iter().enumerate() {
+                vals.push(cell.trim().parse::<f64>().map_err(|_| format_err(path, format!("row {}, column {}: '{cell}' is not a number", r + 2, c + 1)))?);
+            }
+        }
+        if vals.len() != p * p {
+            return Err(format_err(path, "matrix CSV is not square"));
+        }
+        return Ok(Mat::from_row_slice(p, p, &vals));
+    }
+    let s = read_stack(path)?;
+    if s.n != 1 {
+        return Err(format_err(path, "expected a single (p, p) matrix"));
+    }
+    Ok(Mat::from_row_slice(s.p, s.p, &s.data))
+}
+
+/// Writes a stack `(N, p, p)` with NaN in unobserved rows/columns, plus a mask.
+pub fn encode_stack_with_nan(set: &TrialSet) -> Vec<u8> {
+    let (n, p) = (set.len(), set.n_channels());
+    let mut data = vec![f64::NAN; n * p * p];
+    for (i, t) in set.trials().iter().enumerate() {
+        for (a, &ca) in t.observed.iter().enumerate() {
+            for (b, &cb) in t.observed.iter().enumerate() {
+                data[i * p * p + ca * p + cb] = t.block[(a, b)];
+            }
+        }
+    }
+    npy::encode_f64(&[n, p, p], &data)
+}
+
+/// Serialises the mask of a set as NPY uint8 `(N, p)`.
+pub fn encode_mask(set: &TrialSet) -> Vec<u8> {
+    let m: Vec<u8> = set.mask().iter().map(|&b| b as u8).collect();
+    npy::encode_u8(&[set.len(), set.n_channels()], &m)
+}

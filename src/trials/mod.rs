@@ -1,0 +1,333 @@
+//! The trial set: per-trial covariance blocks over the observed channels.
+//!
+//! A trial keeps only its observed channels and the matching `k×k` block of
+//! its covariance. Unobserved rows and columns are never stored, so no scheme
+//! can read them by accident: a scheme that needs full matrices must ask for
+//! them and gets an error naming the first incomplete trial.
+//!
+//! Validation runs once, in [`TrialSet::new`]; everything downstream trusts
+//! the set: blocks are finite, symmetric (symmetrised) and positive definite,
+//! every trial observes at least one channel, and weights are usable.
+
+pub mod io;
+pub mod npy;
+
+use crate::error::{LacunaError, Result, TrialProblem};
+use crate::spd::Mat;
+use crate::spd::validate::{check_spd, SpdDefect};
+
+/// One trial (or time window): the channels it observed and their covariance.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Trial {
+    /// Indices of observed channels, strictly increasing.
+    pub observed: Vec<usize>,
+    /// Covariance of the observed channels, `k×k` with `k = observed.len()`.
+    pub block: Mat,
+}
+
+impl Trial {
+    /// Takes trial `i` from a C-order `(N, p, p)` stack and its mask row.
+    pub fn from_stack_row(stack: &[f64], p: usize, i: usize, observed: Vec<usize>) -> Trial {
+        let base = i * p * p;
+        let k = observed.len();
+        let block = Mat::from_fn(k, k, |a, b| stack[base + observed[a] * p + observed[b]]);
+        Trial { observed, block }
+    }
+}
+
+/// A validated set of trials over a common list of channels.
+#[derive(Debug, Clone)]
+pub struct TrialSet {
+    channels: Vec<String>,
+    trials: Vec<Trial>,
+    weights: Vec<f64>,
+    /// Optional class label per trial.
+    pub labels: Option<Vec<String>>,
+    /// Optional session id per trial.
+    pub sessions: Option<Vec<String>>,
+}
+
+/// Trials sharing one observation pattern.
+#[derive(Debug, Clone)]
+pub struct PatternGroup {
+    /// The observed channels of every trial in the group.
+    pub observed: Vec<usize>,
+    /// Trial indices, increasing.
+    pub trials: Vec<usize>,
+}
+
+impl TrialSet {
+    /// Validates and builds a trial set. `source_name` names the input in
+    /// error messages (usually the file path). Every problem is reported,
+    /// not just the first.
+    pub fn new(channels: Vec<String>, mut trials: Vec<Trial>, weights: Option<Vec<f64>>, source_name: &str) -> Result<Self> {
+        let p = channels.len();
+        let mut problems = Vec::new();
+        let name = |c: usize| channels.get(c).cloned().unwrap_or_else(|| format!("#{c}"));
+        if trials.is_empty() {
+            problems.push(TrialProblem { trial: None, channel: None, message: "the set holds no trials".into() });
+        }
+        for (i, t) in trials.iter_mut().enumerate() {
+            if t.observed.is_empty() {
+                problems.push(TrialProblem { trial: Some(i), channel: None, message: "no channel is observed".into() });
+                continue;
+            }
+            if t.observed.windows(2).any(|w| w[0] >= w[1]) || t.observed.iter().any(|&c| c >= p) {
+                problems.push(TrialProblem { trial: Some(i), channel: None, message: "observed channel list is not increasing or out of range".into() });
+                continue;
+            }
+            match check_spd(&t.block) {
+                Ok(()) => t.block = crate::spd::symmetrize(&t.block),
+                Err(SpdDefect::NonFinite { row, col }) => problems.push(TrialProblem {
+                    trial: Some(i),
+                    channel: Some(name(t.observed[row])),
+                    message: format!("NaN or infinite value inside the observed block (with channel {}); mark the channel as unobserved in the mask or fix the value", name(t.observed[col])),
+                }),
+                Err(SpdDefect::NotSymmetric { relative, row }) => problems.push(TrialProblem {
+                    trial: Some(i),
+                    channel: Some(name(t.observed[row])),
+                    message: format!("matrix is not symmetric (relative asymmetry {relative:.2e} > 1e-10); largest mismatch in this channel's row"),
+                }),
+                Err(SpdDefect::NotPositiveDefinite { row, pivot }) => problems.push(TrialProblem {
+                    trial: Some(i),
+                    channel: Some(name(t.observed[row])),
+                    message: format!(
+                        "observed block is not positive definite: Cholesky pivot {pivot:.3e} at this channel (observed channels: {}); the channel is constant or a combination of the earlier ones (re-referenced, bridged or interpolated?)",
+                        t.observed.iter().map(|&c| name(c)).collect::<Vec<_>>().join(", ")
+                    ),
+                }),
+            }
+        }
+        let n = trials.len();
+        let weights = match weights {
+            None => vec![1.0; n],
+            Some(w) => {
+                if w.len() != n {
+                    problems.push(TrialProblem { trial: None, channel: None, message: format!("{} weights given for {n} trials", w.len()) });
+                } else {
+                    for (i, &v) in w.iter().enumerate() {
+                        if !v.is_finite() || v < 0.0 {
+                            problems.push(TrialProblem { trial: Some(i), channel: None, message: format!("weight {v} is negative or not finite") });
+                        }
+                    }
+                    if w.iter().all(|&v| v == 0.0) {
+                        problems.push(TrialProblem { trial: None, channel: None, message: "all weights are zero".into() });
+                    }
+                }
+                w
+            }
+        };
+        if !problems.is_empty() {
+            return Err(LacunaError::InvalidTrials { source_name: source_name.to_string(), problems });
+        }
+        Ok(TrialSet { channels, trials, weights, labels: None, sessions: None })
+    }
+
+    /// Number of trials `N`.
+    pub fn len(&self) -> usize {
+        self.trials.len()
+    }
+
+    /// True when the set has no trials (never true after validation).
+    pub fn is_empty(&self) -> bool {
+        self.trials.is_empty()
+    }
+
+    /// Number of channels `p`.
+    pub fn n_channels(&self) -> usize {
+        self.channels.len()
+    }
+
+    /// Channel names.
+    pub fn channels(&self) -> &[String] {
+        &self.channels
+    }
+
+    /// The trials.
+    pub fn trials(&self) -> &[Trial] {
+        &self.trials
+    }
+
+    /// Raw weights as given (default 1).
+    pub fn weights(&self) -> &[f64] {
+        &self.weights
+    }
+
+    /// Weights scaled to sum to one.
+    pub fn normalized_weights(&self) -> Vec<f64> {
+        let s: f64 = self.weights.iter().sum();
+        self.weights.iter().map(|w| w / s).collect()
+    }
+
+    /// Whether trial `i` observed channel `c`.
+    pub fn observed(&self, i: usize, c: usize) -> bool {
+        self.trials[i].observed.binary_search(&c).is_ok()
+    }
+
+    /// `N×p` mask, row-major, true = observed.
+    pub fn mask(&self) -> Vec<bool> {
+        let p = self.n_channels();
+        let mut m = vec![false; self.len() * p];
+        for (i, t) in self.trials.iter().enumerate() {
+            for &c in &t.observed {
+                m[i * p + c] = true;
+            }
+        }
+        m
+    }
+
+    /// True when trial `i` observed every channel.
+    pub fn is_complete(&self, i: usize) -> bool {
+        self.trials[i].observed.len() == self.n_channels()
+    }
+
+    /// True when every trial observed every channel.
+    pub fn all_complete(&self) -> bool {
+        (0..self.len()).all(|i| self.is_complete(i))
+    }
+
+    /// The full `p×p` matrices, for schemes that need complete trials.
+    /// Errors with the first incomplete trial and one of its missing channels.
+    pub fn complete_blocks(&self, scheme: &str) -> Result<Vec<&Mat>> {
+        if let Some(i) = (0..self.len()).find(|&i| !self.is_complete(i)) {
+            let missing = (0..self.n_channels()).find(|&c| !self.observed(i, c)).unwrap_or(0);
+            return Err(LacunaError::Unsupported(format!(
+                "scheme '{scheme}' needs every channel in every trial, but trial {i} lacks channel {} ({} of {} trials are incomplete); use --scheme airm-observed, which averages the observed blocks only",
+                self.channels[missing],
+                (0..self.len()).filter(|&j| !self.is_complete(j)).count(),
+                self.len()
+            )));
+        }
+        Ok(self.trials.iter().map(|t| &t.block).collect())
+    }
+
+    /// Trials grouped by identical observation pattern, in order of first
+    /// appearance. Trials in a group share the sub-block of any candidate mean,
+    /// so per-pattern work (a Cholesky factor) is done once per group.
+    pub fn pattern_groups(&self) -> Vec<PatternGroup> {
+        let mut index: std::collections::HashMap<&[usize], usize> = std::collections::HashMap::new();
+        let mut groups: Vec<PatternGroup> = Vec::new();
+        for (i, t) in self.trials.iter().enumerate() {
+            match index.get(t.observed.as_slice()) {
+                Some(&g) => groups[g].trials.push(i),
+                None => {
+                    index.insert(t.observed.as_slice(), groups.len());
+                    groups.push(PatternGroup { observed: t.observed.clone(), trials: vec![i] });
+                }
+            }
+        }
+        groups
+    }
+
+    /// `p×p` matrix of how many trials observe both channels (diagonal:
+    /// how many observe the channel).
+    pub fn coobservation_counts(&self) -> Vec<Vec<usize>> {
+        let p = self.n_channels();
+        let mut c = vec![vec![0usize; p]; p];
+        for t in &self.trials {
+            for &a in &t.observed {
+                for &b in &t.observed {
+                    c[a][b] += 1;
+                }
+            }
+        }
+        c
+    }
+
+    /// A copy without the listed channels (indices into the current list).
+    /// Trials left with no channel make this fail validation.
+    pub fn without_channels(&self, drop: &[usize]) -> Result<TrialSet> {
+        let p = self.n_channels();
+        let keep: Vec<usize> = (0..p).filter(|c| !drop.contains(c)).collect();
+        let mut new_index = vec![usize::MAX; p];
+        for (k, &c) in keep.iter().enumerate() {
+            new_index[c] = k;
+        }
+        let trials = self
+            .trials
+            .iter()
+            .map(|t| {
+                let local: Vec<usize> = (0..t.observed.len()).filter(|&a| new_index[t.observed[a]] != usize::MAX).collect();
+                let observed = local.iter().map(|&a| new_index[t.observed[a]]).collect();
+                let block = Mat::from_fn(local.len(), local.len(), |r, s| t.block[(local[r], local[s])]);
+                Trial { observed, block }
+            })
+            .collect();
+        let channels = keep.iter().map(|&c| self.channels[c].clone()).collect();
+        let mut out = TrialSet::new(channels, trials, Some(self.weights.clone()), "after dropping channels")?;
+        out.labels = self.labels.clone();
+        out.sessions = self.sessions.clone();
+        Ok(out)
+    }
+
+    /// Replaces the weights (validated).
+    pub fn with_weights(self, weights: Vec<f64>, source_name: &str) -> Result<TrialSet> {
+        let labels = self.labels.clone();
+        let sessions = self.sessions.clone();
+        let mut out = TrialSet::new(self.channels, self.trials, Some(weights), source_name)?;
+        out.labels = labels;
+        out.sessions = sessions;
+        Ok(out)
+    }
+
+    /// Builds a set of complete trials from full matrices (all channels observed).
+    pub fn from_full(channels: Vec<String>, mats: Vec<Mat>, weights: Option<Vec<f64>>) -> Result<TrialSet> {
+        let p = channels.len();
+        let trials = mats.into_iter().map(|m| Trial { observed: (0..p).collect(), block: m }).collect();
+        TrialSet::new(channels, trials, weights, "input")
+    }
+}
+
+/// Default channel names `ch0, ch1, …` when a file gives none.
+pub fn default_channel_names(p: usize) -> Vec<String> {
+    (0..p).map(|c| format!("ch{c}")).collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn spd(k: usize, seed: usize) -> Mat {
+        let b = Mat::from_fn(k, k, |i, j| (((i + 1) * (j + 2) * (seed + 3)) % 7) as f64 / 7.0);
+        &b * b.transpose() + Mat::identity(k, k)
+    }
+
+    // Common practice, no source: every defect is reported with its trial and channel.
+    #[test]
+    fn reports_every_problem_with_trial_and_channel() {
+        let ch = default_channel_names(3);
+        let mut bad = spd(2, 1);
+        bad[(1, 1)] = -5.0;
+        let trials = vec![
+            Trial { observed: vec![0, 1, 2], block: spd(3, 0) },
+            Trial { observed: vec![0, 2], block: bad },
+            Trial { observed: vec![], block: Mat::zeros(0, 0) },
+        ];
+        let err = TrialSet::new(ch, trials, Some(vec![1.0, -1.0, 1.0]), "s.npy").unwrap_err();
+        let msg = err.to_string();
+        assert!(msg.contains("trial 1, channel ch2"), "{msg}");
+        assert!(msg.contains("trial 2: no channel"), "{msg}");
+        assert!(msg.contains("weight -1"), "{msg}");
+        assert_eq!(err.exit_code(), 3);
+    }
+
+    #[test]
+    fn groups_and_counts() {
+        let ch = default_channel_names(3);
+        let trials = vec![
+            Trial { observed: vec![0, 1, 2], block: spd(3, 0) },
+            Trial { observed: vec![0, 2], block: spd(2, 1) },
+            Trial { observed: vec![0, 1, 2], block: spd(3, 2) },
+        ];
+        let set = TrialSet::new(ch, trials, None, "t").unwrap();
+        let g = set.pattern_groups();
+        assert_eq!(g.len(), 2);
+        assert_eq!(g[0].trials, vec![0, 2]);
+        let c = set.coobservation_counts();
+        assert_eq!(c[0][2], 3);
+        assert_eq!(c[1][2], 2);
+        assert!(set.complete_blocks("airm").is_err());
+        let dropped = set.without_channels(&[1]).unwrap();
+        assert!(dropped.all_complete());
+    }
+}
