@@ -17,7 +17,7 @@ use std::sync::Arc;
 
 pub use airm_observed::{AirmObserved, InitRule, MaskedKarcherProblem};
 pub use closed_form::{Arithmetic, Harmonic, LogEuclidean};
-pub use karcher::{Karcher, KarcherProblem};
+pub use karcher::Karcher;
 
 use crate::error::Result;
 use crate::solve::{IterRecord, Solution, StopReason, StopRule};

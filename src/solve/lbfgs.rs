@@ -10,9 +10,13 @@
 //! - a pair `(s, y)` enters the memory only if `⟨s, y⟩ > 1e-10 ‖s‖ ‖y‖`
 //!   (the cautious update of Li & Fukushima 2001);
 //! - a direction that is not a descent direction resets the memory;
-//! - the Armijo condition `F(t) ≤ F(0) + 1e-4 t ⟨g, d⟩` accepts a step, with
-//!   an allowance of a few ulps of `F(0)` so that rounding near the optimum
-//!   does not stall the search (documented in docs/methods.md).
+//! - the Armijo condition `F(t) ≤ F(0) + 1e-4 t ⟨g, d⟩` accepts a step;
+//! - near the optimum, where cost differences fall below rounding (about
+//!   `ε·F`, reached once `‖g‖² ≈ ε F`), a step is also accepted if the cost
+//!   stays within `1e-12·|F|` and the slope along `d` shrinks in magnitude,
+//!   `|⟨g(t), d⟩| ≤ 0.9 |⟨g(0), d⟩|` — the "approximate Wolfe" idea of Hager &
+//!   Zhang (2005, SIAM J. Optim.), which lets the gradient norm go down to its
+//!   own rounding floor instead of the cost's.
 
 use std::collections::VecDeque;
 
@@ -23,6 +27,10 @@ use crate::spd::{Mat, symmetrize};
 const MEMORY: usize = 8;
 const ARMIJO_C1: f64 = 1e-4;
 const MAX_BACKTRACKS: usize = 40;
+/// Relative band within which cost differences are treated as rounding.
+const ROUNDING_BAND: f64 = 1e-12;
+/// Curvature factor of the approximate Wolfe test used inside that band.
+const CURVATURE_C2: f64 = 0.9;
 
 /// Observer called after every accepted iterate (progress display).
 pub type Observer<'a> = &'a (dyn Fn(&IterRecord) + Sync);
@@ -36,8 +44,7 @@ pub fn minimize(problem: &dyn SpdProblem, x0: &Mat, rule: &StopRule, observer: O
         return None;
     }
     let mut w = e0.apply(f64::sqrt);
-    let mut w_inv = e0.apply(|v| 1.0 / v.sqrt());
-    let mut eval = problem.evaluate(&w, &w_inv)?;
+    let mut eval = problem.evaluate(&w)?;
     let mut evaluations = 1;
     let mut memory: VecDeque<(Mat, Mat, f64)> = VecDeque::with_capacity(MEMORY);
     let mut trace = Vec::new();
@@ -70,19 +77,21 @@ pub fn minimize(problem: &dyn SpdProblem, x0: &Mat, rule: &StopRule, observer: O
         let mut accepted = None;
         for _ in 0..MAX_BACKTRACKS {
             let half = dir_eig.apply(|v| (0.5 * t * v).exp());
-            let half_inv = dir_eig.apply(|v| (-0.5 * t * v).exp());
             let w_new = &w * &half;
-            let w_inv_new = &half_inv * &w_inv;
             evaluations += 1;
-            if let Some(e) = problem.evaluate(&w_new, &w_inv_new) {
-                if e.cost <= eval.cost + ARMIJO_C1 * t * slope + allowance {
-                    accepted = Some((w_new, w_inv_new, e));
+            if let Some(e) = problem.evaluate(&w_new) {
+                // Slope at t: the transported direction is `d` itself.
+                let slope_t = frob(&e.grad, &direction);
+                let armijo = e.cost <= eval.cost + ARMIJO_C1 * t * slope + allowance;
+                let near_flat = e.cost <= eval.cost + ROUNDING_BAND * eval.cost.abs() && slope_t.abs() <= CURVATURE_C2 * slope.abs();
+                if armijo || near_flat {
+                    accepted = Some((w_new, e));
                     break;
                 }
             }
             t *= 0.5;
         }
-        let Some((w_new, w_inv_new, e_new)) = accepted else {
+        let Some((w_new, e_new)) = accepted else {
             break StopReason::LineSearchStalled;
         };
         let s = &direction * t;
@@ -96,7 +105,6 @@ pub fn minimize(problem: &dyn SpdProblem, x0: &Mat, rule: &StopRule, observer: O
             memory.push_back((s, y, 1.0 / sy));
         }
         w = w_new;
-        w_inv = w_inv_new;
         eval = e_new;
         step = t;
         iteration += 1;

@@ -34,10 +34,10 @@ pub struct Evaluation {
 pub trait SpdProblem: Sync {
     /// Matrix size `p`.
     fn size(&self) -> usize;
-    /// Evaluates at `X = W Wᵀ`, with `W⁻¹` supplied. Returns `None` when the
-    /// cost is undefined there (a sub-block not positive definite numerically),
-    /// which the line search treats as "step too long".
-    fn evaluate(&self, w: &Mat, w_inv: &Mat) -> Option<Evaluation>;
+    /// Evaluates at `X = W Wᵀ`. Returns `None` when the cost is undefined
+    /// there (a sub-block not positive definite numerically), which the line
+    /// search treats as "step too long".
+    fn evaluate(&self, w: &Mat) -> Option<Evaluation>;
 }
 
 /// When to stop, and how to report it.

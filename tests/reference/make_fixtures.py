@@ -1,0 +1,181 @@
+"""Reference fixtures for lacuna's tests, computed with numpy/scipy.
+
+Run from the repository root:
+    python3 -m venv /tmp/lacuna-ref && /tmp/lacuna-ref/bin/pip install -r tests/reference/requirements.txt
+    /tmp/lacuna-ref/bin/python tests/reference/make_fixtures.py
+
+Writes tests/reference/fixtures/*.json. The fixtures are committed, so
+`cargo test` needs no Python. Versions are pinned in requirements.txt.
+
+The methods here are deliberately different from lacuna's: symmetric square
+roots and scipy's generalized eigensolver instead of Cholesky whitening,
+scipy.linalg.logm/expm/sqrtm (Schur/Pade based) for the matrix functions,
+LAPACK eigh (numpy) with symmetric square roots in the iterations,
+and L-BFGS-B over a Cholesky parametrisation for the masked mean
+instead of Riemannian L-BFGS.
+"""
+import json
+import os
+
+import numpy as np
+import scipy
+import scipy.linalg as sla
+import scipy.optimize as sopt
+
+OUT = os.path.join(os.path.dirname(__file__), "fixtures")
+RNG = np.random.default_rng(20261201)
+
+
+def random_spd(p, cond, rng=RNG):
+    q, r = np.linalg.qr(rng.standard_normal((p, p)))
+    q = q * np.sign(np.diag(r))
+    ev = np.logspace(-0.5, 0.5, p) ** np.log10(cond)
+    a = (q * ev) @ q.T
+    return 0.5 * (a + a.T)
+
+
+def sym(a):
+    return 0.5 * (a + a.T)
+
+
+def airm(a, b):
+    lam = sla.eigh(b, a, eigvals_only=True)
+    return float(np.sqrt(np.sum(np.log(lam) ** 2)))
+
+
+def eig_fn(a, f):
+    ev, u = np.linalg.eigh(sym(a))
+    return sym((u * f(ev)) @ u.T)
+
+
+def meta():
+    return {"numpy": np.__version__, "scipy": scipy.__version__, "script": "tests/reference/make_fixtures.py"}
+
+
+def matrix_functions():
+    cases = []
+    for p, cond in [(3, 10.0), (8, 1e4), (16, 1e8), (64, 1e8)]:
+        a = random_spd(p, cond)
+        s = sym(RNG.standard_normal((p, p)))
+        # b near a: the distance is then well conditioned (kappa(a^-1 b) small),
+        # as for trials near their mean; far-apart ill-conditioned pairs have
+        # generalized eigenvalues that no method gets to full accuracy.
+        ah = np.real(sla.sqrtm(a))
+        b = sym(ah @ sla.expm(sym(RNG.standard_normal((p, p))) * (0.5 / np.sqrt(p))) @ ah)
+        cases.append({
+            "p": p, "cond": cond,
+            "a": a.tolist(), "b": b.tolist(), "s": s.tolist(),
+            "logm_a": sym(np.real(sla.logm(a))).tolist(),
+            "sqrtm_a": sym(np.real(sla.sqrtm(a))).tolist(),
+            "expm_s": sym(sla.expm(s)).tolist(),
+            "airm_ab": airm(a, b),
+            "logeuclid_ab": float(np.linalg.norm(np.real(sla.logm(a)) - np.real(sla.logm(b)))),
+        })
+    return {"meta": meta(), "cases": cases}
+
+
+def karcher_reference(mats, w, tol=1e-14, max_iter=10000):
+    """Plain fixed-point (unit step) iteration with symmetric square roots
+    (numpy.linalg.eigh), started from the log-Euclidean mean (scipy logm/expm)."""
+    w = np.asarray(w) / np.sum(w)
+    x = sla.expm(sum(wi * np.real(sla.logm(c)) for wi, c in zip(w, mats)))
+    for _ in range(max_iter):
+        xs = eig_fn(x, np.sqrt)
+        xis = eig_fn(x, lambda v: 1.0 / np.sqrt(v))
+        s = sum(wi * eig_fn(xis @ c @ xis, np.log) for wi, c in zip(w, mats))
+        x = sym(xs @ eig_fn(s, np.exp) @ xs)
+        if np.linalg.norm(s) < tol:
+            break
+    return x
+
+
+def karcher_cases():
+    cases = []
+    for p, n, cond, spread in [(4, 6, 10.0, 0.5), (8, 10, 1e3, 0.4), (32, 20, 1e8, 0.2), (64, 12, 1e8, 0.15)]:
+        center = random_spd(p, cond)
+        cs = np.real(sla.sqrtm(center))
+        mats = []
+        for _ in range(n):
+            z = sym(RNG.standard_normal((p, p))) * spread / np.sqrt(p)
+            mats.append(sym(cs @ sla.expm(z) @ cs))
+        w = RNG.uniform(0.5, 2.0, n)
+        g = karcher_reference(mats, w)
+        cases.append({"p": p, "n": n, "cond": cond, "mats": [m.tolist() for m in mats], "weights": w.tolist(), "mean": g.tolist()})
+    return {"meta": meta(), "cases": cases}
+
+
+def masked_cost_grad(theta, p, blocks, obs, w):
+    l = np.zeros((p, p))
+    il = np.tril_indices(p)
+    l[il] = theta
+    d = np.diag_indices(p)
+    l[d] = np.exp(l[d])
+    x = l @ l.T
+    f = 0.0
+    ge = np.zeros((p, p))
+    for c, o, wi in zip(blocks, obs, w):
+        a = x[np.ix_(o, o)]
+        ahi = eig_fn(a, lambda v: 1.0 / np.sqrt(v))
+        lg = eig_fn(ahi @ c @ ahi, np.log)
+        f += 0.5 * wi * np.sum(lg * lg)
+        ge[np.ix_(o, o)] -= wi * sym(ahi @ lg @ ahi)
+    gl = 2.0 * ge @ l
+    gl[d] *= l[d]
+    return f, gl[il]
+
+
+def masked_cases():
+    cases = []
+    for p, n, frac, max_lost in [(5, 40, 0.4, 2), (10, 60, 0.3, 3), (16, 80, 0.3, 4)]:
+        sigma = random_spd(p, 50.0)
+        ls = np.linalg.cholesky(sigma)
+        blocks, obs, fulls = [], [], []
+        for _ in range(n):
+            xsamp = ls @ RNG.standard_normal((p, 3 * p))
+            c = sym(xsamp @ xsamp.T / (3 * p))
+            o = list(range(p))
+            if RNG.uniform() < frac:
+                lost = RNG.choice(p, size=RNG.integers(1, max_lost + 1), replace=False)
+                o = [k for k in o if k not in set(lost.tolist())]
+            blocks.append(c[np.ix_(o, o)])
+            obs.append(o)
+            fulls.append(c)
+        w = np.ones(n) / n
+        # Start from the complete-trial Karcher-free guess: pairwise average.
+        s = np.zeros((p, p))
+        cnt = np.zeros((p, p))
+        for c, o in zip(blocks, obs):
+            s[np.ix_(o, o)] += c
+            cnt[np.ix_(o, o)] += 1
+        x0 = s / cnt
+        ev, u = np.linalg.eigh(x0)
+        x0 = (u * np.maximum(ev, 1e-3 * np.trace(x0) / p)) @ u.T
+        l0 = np.linalg.cholesky(x0)
+        l0[np.diag_indices(p)] = np.log(np.diag(l0))
+        theta0 = l0[np.tril_indices(p)]
+        res = sopt.minimize(masked_cost_grad, theta0, args=(p, blocks, obs, w), jac=True, method="L-BFGS-B",
+                            options={"maxiter": 20000, "maxcor": 30, "ftol": 1e-16, "gtol": 1e-13})
+        l = np.zeros((p, p))
+        l[np.tril_indices(p)] = res.x
+        l[np.diag_indices(p)] = np.exp(np.diag(l))
+        x = l @ l.T
+        cases.append({
+            "p": p, "n": n,
+            "observed": obs,
+            "blocks": [b.tolist() for b in blocks],
+            "mean": x.tolist(), "cost": float(res.fun), "optimizer_message": str(res.message),
+            "optimizer_iterations": int(res.nit),
+        })
+    return {"meta": meta(), "cases": cases}
+
+
+def main():
+    os.makedirs(OUT, exist_ok=True)
+    for name, fn in [("matrix_functions", matrix_functions), ("karcher", karcher_cases), ("masked", masked_cases)]:
+        with open(os.path.join(OUT, name + ".json"), "w") as f:
+            json.dump(fn(), f)
+        print("wrote", name)
+
+
+if __name__ == "__main__":
+    main()
