@@ -1,0 +1,264 @@
+//! End-to-end tests of the `lacuna` binary: outputs, exit codes, bad input.
+
+mod common;
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use lacuna::simulate::rng::Rng;
+use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
+use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
+use lacuna::trials::npy::{encode_f64, encode_u8};
+
+struct Dir(PathBuf);
+
+impl Dir {
+    fn new(name: &str) -> Dir {
+        let d = std::env::temp_dir().join(format!("lacuna-cli-{name}-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&d);
+        std::fs::create_dir_all(&d).unwrap();
+        Dir(d)
+    }
+    fn path(&self, f: &str) -> PathBuf {
+        self.0.join(f)
+    }
+    fn write(&self, f: &str, bytes: &[u8]) -> PathBuf {
+        let p = self.path(f);
+        std::fs::write(&p, bytes).unwrap();
+        p
+    }
+}
+
+impl Drop for Dir {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_dir_all(&self.0);
+    }
+}
+
+fn lacuna(args: &[&str]) -> (i32, String, String) {
+    let out = Command::new(env!("CARGO_BIN_EXE_lacuna")).args(args).output().unwrap();
+    (out.status.code().unwrap_or(-1), String::from_utf8_lossy(&out.stdout).into(), String::from_utf8_lossy(&out.stderr).into())
+}
+
+fn s(p: &Path) -> &str {
+    p.to_str().unwrap()
+}
+
+/// A small masked data set written as NaN-encoded stack + mask.
+fn write_set(d: &Dir, n: usize, p: usize, seed: u64) -> (PathBuf, PathBuf) {
+    let mut rng = Rng::new(seed);
+    let sigma = random_spd(p, 20.0, &mut rng);
+    let full: Vec<_> = (0..n).map(|_| sample_covariance(&sigma, 40, &mut rng)).collect();
+    let set = masked_set(&full, random_dropout(n, p, 0.3, 2, &mut rng));
+    (d.write("covs.npy", &encode_stack_with_nan(&set)), d.write("mask.npy", &encode_mask(&set)))
+}
+
+/// Complete stack as raw data for hand-made corruptions.
+fn complete_stack(n: usize, p: usize) -> Vec<f64> {
+    let mut rng = Rng::new(5);
+    let sigma = random_spd(p, 10.0, &mut rng);
+    let mut data = Vec::new();
+    for _ in 0..n {
+        let c = sample_covariance(&sigma, 30, &mut rng);
+        for i in 0..p {
+            for j in 0..p {
+                data.push(c[(i, j)]);
+            }
+        }
+    }
+    data
+}
+
+fn expect_refusal(args: &[&str], out: &Path, needles: &[&str]) {
+    let (code, _, err) = lacuna(args);
+    assert_eq!(code, 3, "stderr: {err}");
+    for n in needles {
+        assert!(err.contains(n), "missing '{n}' in: {err}");
+    }
+    assert!(!out.exists(), "an output file was left behind");
+}
+
+// GUIDE §4 contract: flags, NPY output, report fields, exit 0.
+#[test]
+fn mean_writes_npy_and_report_with_contract_fields() {
+    let d = Dir::new("ok");
+    let (covs, mask) = write_set(&d, 60, 6, 1);
+    let (out, rep) = (d.path("mean.npy"), d.path("r.json"));
+    let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--scheme", "airm-observed", "--out", s(&out), "--report", s(&rep)]);
+    assert_eq!(code, 0, "{err}");
+    let m = lacuna::trials::io::read_matrix(&out).unwrap();
+    assert_eq!(m.nrows(), 6);
+    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["converged"], true);
+    assert!(r["iterations"].as_u64().unwrap() > 0);
+    assert!(r["gradient_norm"].as_f64().unwrap() <= 1e-10);
+    assert!(r["unconstrained_pairs"].is_array());
+    assert_eq!(r["coobservation"].as_array().unwrap().len(), 6);
+    assert!(!std::fs::read_dir(&d.0).unwrap().any(|e| e.unwrap().file_name().to_string_lossy().contains("partial")));
+}
+
+// NaN-encoded stack without a mask: the mask is inferred; CSV output has a header.
+#[test]
+fn infers_mask_from_nan_and_writes_csv() {
+    let d = Dir::new("csv");
+    let (covs, _) = write_set(&d, 40, 5, 2);
+    let out = d.path("mean.csv");
+    let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--out", s(&out), "--quiet"]);
+    assert_eq!(code, 0, "{err}");
+    let text = std::fs::read_to_string(&out).unwrap();
+    assert!(text.starts_with("ch0,ch1,ch2,ch3,ch4\n"));
+    assert_eq!(text.lines().count(), 6);
+}
+
+// Every full-data scheme runs on complete data.
+#[test]
+fn every_full_data_scheme_runs() {
+    let d = Dir::new("schemes");
+    let covs = d.write("covs.npy", &encode_f64(&[30, 4, 4], &complete_stack(30, 4)));
+    for scheme in ["airm", "log-euclidean", "arithmetic", "harmonic", "airm-observed"] {
+        let out = d.path(&format!("{scheme}.npy"));
+        let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--scheme", scheme, "--out", s(&out), "--quiet"]);
+        assert_eq!(code, 0, "{scheme}: {err}");
+    }
+}
+
+// Same input, 1 and 2 threads: byte-identical output (GUIDE §3 determinism).
+#[test]
+fn output_does_not_depend_on_threads() {
+    let d = Dir::new("threads");
+    let (covs, mask) = write_set(&d, 200, 8, 3);
+    let (a, b) = (d.path("a.npy"), d.path("b.npy"));
+    assert_eq!(lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&a), "--threads", "1", "--quiet"]).0, 0);
+    assert_eq!(lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&b), "--threads", "2", "--quiet"]).0, 0);
+    assert_eq!(std::fs::read(a).unwrap(), std::fs::read(b).unwrap());
+}
+
+#[test]
+fn refuses_non_symmetric_matrix() {
+    let d = Dir::new("asym");
+    let mut data = complete_stack(5, 4);
+    data[2 * 16 + 4 + 3] += 0.5; // trial 2, row 1, column 3
+    let covs = d.write("covs.npy", &encode_f64(&[5, 4, 4], &data));
+    let out = d.path("m.npy");
+    expect_refusal(&["mean", "--covs", s(&covs), "--out", s(&out)], &out, &["covs.npy", "trial 2", "not symmetric"]);
+}
+
+#[test]
+fn refuses_block_that_is_not_positive_definite() {
+    let d = Dir::new("notpd");
+    let mut data = complete_stack(4, 3);
+    // Trial 1: channel 2 duplicates channel 1.
+    for k in 0..3 {
+        data[9 + 2 * 3 + k] = data[9 + 3 + k];
+        data[9 + k * 3 + 2] = data[9 + k * 3 + 1];
+    }
+    data[9 + 2 * 3 + 2] = data[9 + 3 + 1];
+    let covs = d.write("covs.npy", &encode_f64(&[4, 3, 3], &data));
+    let out = d.path("m.npy");
+    expect_refusal(&["mean", "--covs", s(&covs), "--out", s(&out)], &out, &["trial 1, channel ch2", "not positive definite", "observed channels: ch0, ch1, ch2"]);
+}
+
+#[test]
+fn refuses_nan_inside_observed_block() {
+    let d = Dir::new("nan");
+    let mut data = complete_stack(3, 3);
+    data[2 * 9 + 1] = f64::NAN; // trial 2, (0, 1) — off-diagonal, so not an unobserved channel
+    let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &data));
+    let mask = d.write("mask.npy", &encode_u8(&[3, 3], &[1; 9]));
+    let out = d.path("m.npy");
+    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["trial 2, channel ch0", "NaN"]);
+}
+
+#[test]
+fn refuses_shape_mismatch_dtype_and_truncation() {
+    let d = Dir::new("shape");
+    let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &complete_stack(3, 3)));
+    let mask = d.write("mask.npy", &encode_u8(&[3, 4], &[1; 12]));
+    let out = d.path("m.npy");
+    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["mask.npy", "does not match"]);
+
+    let mut int_stack = encode_f64(&[3, 3, 3], &complete_stack(3, 3));
+    let pos = int_stack.windows(3).position(|w| w == b"<f8").unwrap();
+    int_stack[pos..pos + 3].copy_from_slice(b"<i8");
+    let ints = d.write("ints.npy", &int_stack);
+    expect_refusal(&["mean", "--covs", s(&ints), "--out", s(&out)], &out, &["ints.npy", "dtype <i8"]);
+
+    let full = encode_f64(&[3, 3, 3], &complete_stack(3, 3));
+    let cut = d.write("cut.npy", &full[..full.len() - 20]);
+    expect_refusal(&["mean", "--covs", s(&cut), "--out", s(&out)], &out, &["cut.npy", "truncated"]);
+
+    let junk = d.write("junk.npy", b"definitely not an array");
+    expect_refusal(&["mean", "--covs", s(&junk), "--out", s(&out)], &out, &["junk.npy", "not an NPY file"]);
+}
+
+#[test]
+fn refuses_trial_without_channels_and_bad_weights() {
+    let d = Dir::new("empty");
+    let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &complete_stack(3, 3)));
+    let mask = d.write("mask.npy", &encode_u8(&[3, 3], &[1, 1, 1, 0, 0, 0, 1, 1, 1]));
+    let out = d.path("m.npy");
+    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["trial 1: no channel is observed"]);
+
+    let neg = d.write("w.csv", b"weight\n1\n-2\n1\n");
+    expect_refusal(&["mean", "--covs", s(&covs), "--weights", s(&neg), "--out", s(&out)], &out, &["trial 1", "negative"]);
+    let zero = d.write("z.npy", &encode_f64(&[3], &[0.0, 0.0, 0.0]));
+    expect_refusal(&["mean", "--covs", s(&covs), "--weights", s(&zero), "--out", s(&out)], &out, &["all weights are zero"]);
+    let short = d.write("short.npy", &encode_f64(&[2], &[1.0, 1.0]));
+    expect_refusal(&["mean", "--covs", s(&covs), "--weights", s(&short), "--out", s(&out)], &out, &["2 weights for 3 trials"]);
+}
+
+#[test]
+fn unobserved_channel_refused_unless_dropped() {
+    let d = Dir::new("drop");
+    let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &complete_stack(3, 3)));
+    let mask = d.write("mask.csv", b"Fz,Cz,Pz\n1,0,1\n1,0,1\n1,0,1\n");
+    let (out, rep) = (d.path("m.csv"), d.path("r.json"));
+    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["channel Cz is observed in no trial", "--drop-unobserved"]);
+    let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out), "--report", s(&rep), "--drop-unobserved"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(std::fs::read_to_string(&out).unwrap().starts_with("Fz,Pz\n"));
+    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["dropped_channels"], serde_json::json!(["Cz"]));
+}
+
+#[test]
+fn full_data_scheme_on_masked_data_is_refused() {
+    let d = Dir::new("fullmask");
+    let (covs, mask) = write_set(&d, 30, 5, 4);
+    let out = d.path("m.npy");
+    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--scheme", "airm", "--out", s(&out)], &out, &["needs every channel", "airm-observed"]);
+}
+
+#[test]
+fn usage_errors_exit_2() {
+    let (code, _, err) = lacuna(&["mean", "--covs", "x.npy", "--out", "y.npy", "--scheme", "nonesuch"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("unknown scheme 'nonesuch'"));
+    assert_eq!(lacuna(&["mean", "--out", "y.npy"]).0, 2);
+}
+
+// Non-convergence: exit 4, the mean is still written, the report says why.
+#[test]
+fn non_convergence_exits_4_and_still_writes() {
+    let d = Dir::new("maxiter");
+    let (covs, mask) = write_set(&d, 50, 6, 6);
+    let (out, rep) = (d.path("m.npy"), d.path("r.json"));
+    let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out), "--report", s(&rep), "--max-iter", "1"]);
+    assert_eq!(code, 4, "{err}");
+    assert!(out.exists());
+    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["converged"], false);
+    assert_eq!(r["stop_reason"], "max-iterations");
+    assert!(r["advice"][0].as_str().unwrap().contains("--max-iter"));
+}
+
+// A refused run leaves an existing output file exactly as it was.
+#[test]
+fn failed_run_keeps_previous_output() {
+    let d = Dir::new("keep");
+    let covs = d.write("covs.npy", b"broken");
+    let out = d.write("m.npy", b"previous result");
+    let (code, _, _) = lacuna(&["mean", "--covs", s(&covs), "--out", s(&out)]);
+    assert_eq!(code, 3);
+    assert_eq!(std::fs::read(&out).unwrap(), b"previous result");
+}
