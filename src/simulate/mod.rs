@@ -2,4 +2,5 @@
 //! deterministic from a seed.
 
 pub mod rng;
+pub mod headset;
 pub mod stacks;
