@@ -1,1 +1,228 @@
-fn main() {}
+//! `lacuna-bench`: measures the Karcher and masked solvers against the floor
+//! of their own kernels and (optionally) against a numpy/scipy reference run
+//! on the same data in the same session.
+//!
+//! Run: `cargo run --release --bin lacuna-bench -- --help`. Results and the
+//! machine they came from are written down in docs/performance.md.
+
+use std::path::PathBuf;
+use std::process::Command;
+use std::time::Instant;
+
+use lacuna::schemes::{AirmObserved, Karcher, MaskedKarcherProblem};
+use lacuna::solve::SpdProblem;
+use lacuna::simulate::rng::Rng;
+use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
+use lacuna::spd::kernels::{cholesky, sym_eigen, whiten};
+use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
+use lacuna::trials::TrialSet;
+use lacuna::{AveragingScheme, SchemeOptions};
+
+struct Args {
+    mode: String,
+    sizes: Vec<(usize, usize)>,
+    reference: Option<String>,
+    threads: Vec<usize>,
+}
+
+fn parse() -> Args {
+    let mut a = Args { mode: "karcher".into(), sizes: vec![], reference: None, threads: vec![1, 2] };
+    let argv: Vec<String> = std::env::args().skip(1).collect();
+    let mut i = 0;
+    while i < argv.len() {
+        match argv[i].as_str() {
+            "--mode" => {
+                a.mode = argv[i + 1].clone();
+                i += 1;
+            }
+            "--size" => {
+                let (n, p) = argv[i + 1].split_once('x').expect("--size NxP");
+                a.sizes.push((n.parse().unwrap(), p.parse().unwrap()));
+                i += 1;
+            }
+            "--reference" => {
+                a.reference = Some(argv[i + 1].clone());
+                i += 1;
+            }
+            "--threads" => {
+                a.threads = argv[i + 1].split(',').map(|t| t.parse().unwrap()).collect();
+                i += 1;
+            }
+            "--help" | "-h" => {
+                println!(
+                    "lacuna-bench [--mode karcher|masked] [--size NxP]... [--threads 1,2] [--reference PYTHON]\n\n\
+                     karcher: full-data Karcher mean, default sizes 100x{{8,32,64,128}} and 10000x{{8,32,64,128}}\n\
+                     masked:  airm-observed with 20% of trials missing 1-8 channels, default 10000x64\n\
+                     --reference PYTHON runs tests/reference/bench_reference.py with that interpreter on the same data\n\
+                     (needs numpy/scipy: pip install -r tests/reference/requirements.txt)"
+                );
+                std::process::exit(0);
+            }
+            other => panic!("unknown argument {other}"),
+        }
+        i += 1;
+    }
+    if a.sizes.is_empty() {
+        a.sizes = if a.mode == "masked" {
+            vec![(10_000, 64)]
+        } else {
+            [100, 10_000].iter().flat_map(|&n| [8, 32, 64, 128].map(|p| (n, p))).collect()
+        };
+    }
+    a
+}
+
+/// Trials: sample covariances (4p samples) of one population of condition 100.
+fn make_set(n: usize, p: usize, masked: bool, seed: u64) -> TrialSet {
+    let mut rng = Rng::new(seed);
+    let sigma = random_spd(p, 100.0, &mut rng);
+    let full: Vec<_> = (0..n).map(|_| sample_covariance(&sigma, 4 * p, &mut rng)).collect();
+    let obs = if masked { random_dropout(n, p, 0.2, 8, &mut rng) } else { vec![(0..p).collect(); n] };
+    masked_set(&full, obs)
+}
+
+/// The floor: one Cholesky whitening and one eigendecomposition per trial,
+/// same kernels, same thread pool, mean of 3 repeats.
+fn floor_seconds(set: &TrialSet, x: &lacuna::Mat) -> f64 {
+    use rayon::prelude::*;
+    let groups = set.pattern_groups();
+    let run = || {
+        let t = Instant::now();
+        let factors: Vec<_> = groups
+            .par_iter()
+            .map(|g| cholesky(&lacuna::Mat::from_fn(g.observed.len(), g.observed.len(), |a, b| x[(g.observed[a], g.observed[b])])).unwrap())
+            .collect();
+        let mut pairs = Vec::new();
+        for (gi, g) in groups.iter().enumerate() {
+            for &i in &g.trials {
+                pairs.push((gi, i));
+            }
+        }
+        let s: f64 = pairs.par_iter().map(|&(gi, i)| sym_eigen(&whiten(&factors[gi], &set.trials()[i].block)).values[0]).sum();
+        std::hint::black_box(s);
+        t.elapsed().as_secs_f64()
+    };
+    run();
+    (run() + run() + run()) / 3.0
+}
+
+/// One evaluation of the cost and whitened gradient (what an iteration costs
+/// when the unit step is accepted), mean of 3 repeats.
+fn evaluation_seconds(set: &TrialSet, x: &lacuna::Mat) -> f64 {
+    let problem = MaskedKarcherProblem::new(set);
+    let w = sym_eigen(x).apply(f64::sqrt);
+    let run = || {
+        let t = Instant::now();
+        std::hint::black_box(problem.evaluate(&w));
+        t.elapsed().as_secs_f64()
+    };
+    run();
+    (run() + run() + run()) / 3.0
+}
+
+/// Per-call time of each kernel at several sizes, single thread: the data
+/// behind the size switch in `spd::kernels`.
+fn kernels() {
+    use lacuna::spd::kernels::add_rebuild;
+    println!("| p | Cholesky (µs) | whitening (µs) | eigen nalgebra (µs) | eigen faer (µs) | rebuild U·diag·Uᵀ (µs) |");
+    println!("|---|---|---|---|---|---|");
+    for p in [8usize, 16, 32, 48, 64, 128, 256] {
+        let mut rng = Rng::new(p as u64);
+        let a = random_spd(p, 100.0, &mut rng);
+        let c = sample_covariance(&a, 4 * p, &mut rng);
+        let reps = (2_000_000 / (p * p * p)).clamp(5, 20_000);
+        let time = |f: &mut dyn FnMut()| {
+            f();
+            let t = Instant::now();
+            for _ in 0..reps {
+                f();
+            }
+            t.elapsed().as_secs_f64() / reps as f64 * 1e6
+        };
+        let l = cholesky(&a).unwrap();
+        let m = whiten(&l, &c);
+        let t_chol = time(&mut || {
+            std::hint::black_box(cholesky(&a));
+        });
+        let t_white = time(&mut || {
+            std::hint::black_box(whiten(&l, &c));
+        });
+        let t_nal = time(&mut || {
+            std::hint::black_box(nalgebra::SymmetricEigen::new(m.clone()));
+        });
+        let fm = faer::Mat::<f64>::from_fn(p, p, |i, j| m[(i, j)]);
+        let t_faer = time(&mut || {
+            std::hint::black_box(fm.self_adjoint_eigen(faer::Side::Lower).unwrap());
+        });
+        let e = sym_eigen(&m);
+        let mut acc = lacuna::Mat::zeros(p, p);
+        let t_re = time(&mut || add_rebuild(&mut acc, &e.vectors, &e.values));
+        println!("| {p} | {t_chol:.1} | {t_white:.1} | {t_nal:.1} | {t_faer:.1} | {t_re:.1} |");
+    }
+}
+
+fn main() {
+    let args = parse();
+    if args.mode == "kernels" {
+        kernels();
+        return;
+    }
+    let masked = args.mode == "masked";
+    println!("| N | p | threads | iterations | evaluations | time to tol (s) | per evaluation (ms) | floor (ms) | ratio to floor | gradient norm |");
+    println!("|---|---|---|---|---|---|---|---|---|---|");
+    for &(n, p) in &args.sizes {
+        let set = make_set(n, p, masked, 7);
+        let mut per_thread = Vec::new();
+        for &threads in &args.threads {
+            let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+            let (secs, r) = pool.install(|| {
+                let t = Instant::now();
+                let r = if masked { AirmObserved.average(&set, &SchemeOptions::default()) } else { Karcher.average(&set, &SchemeOptions::default()) }.unwrap();
+                (t.elapsed().as_secs_f64(), r)
+            });
+            let floor = pool.install(|| floor_seconds(&set, &r.mean));
+            let per_eval = pool.install(|| evaluation_seconds(&set, &r.mean));
+            let d = &r.diagnostics;
+            println!(
+                "| {n} | {p} | {threads} | {} | {} | {secs:.3} | {:.2} | {:.2} | {:.2} | {:.1e} |",
+                d.iterations,
+                d.evaluations,
+                per_eval * 1e3,
+                floor * 1e3,
+                per_eval / floor,
+                d.gradient_norm.unwrap_or(f64::NAN)
+            );
+            per_thread.push(secs);
+        }
+        if per_thread.len() == 2 {
+            println!("|  |  | speedup {}→{} threads: {:.2}× |  |  |  |  |  |  |  |", args.threads[0], args.threads[1], per_thread[0] / per_thread[1]);
+        }
+        if let Some(py) = &args.reference {
+            let dir = std::env::temp_dir().join(format!("lacuna-bench-{}", std::process::id()));
+            std::fs::create_dir_all(&dir).unwrap();
+            let covs: PathBuf = dir.join("covs.npy");
+            std::fs::write(&covs, encode_stack_with_nan(&set)).unwrap();
+            std::fs::write(dir.join("mask.npy"), encode_mask(&set)).unwrap();
+            let script = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/bench_reference.py");
+            let out = Command::new(py).arg(script).arg(&dir).arg(if masked { "masked" } else { "full" }).output().expect("run the reference");
+            let text = String::from_utf8_lossy(&out.stdout);
+            let best = per_thread.last().copied().unwrap_or(f64::NAN);
+            for line in text.lines() {
+                if let Ok(v) = serde_json::from_str::<serde_json::Value>(line) {
+                    let rs = v["seconds"].as_f64().unwrap_or(f64::NAN);
+                    println!(
+                        "|  |  | reference ({}) | {} |  | {rs:.3} |  |  | lacuna {:.1}× faster | {:.1e} |",
+                        v["method"].as_str().unwrap_or("?"),
+                        v["iterations"],
+                        rs / best,
+                        v["gradient_norm"].as_f64().unwrap_or(f64::NAN)
+                    );
+                }
+            }
+            if !out.status.success() {
+                eprintln!("reference failed: {}", String::from_utf8_lossy(&out.stderr));
+            }
+            let _ = std::fs::remove_dir_all(&dir);
+        }
+    }
+}

@@ -22,7 +22,7 @@ use crate::diagnose::{identifiability, max_det_completion};
 use crate::error::{LacunaError, Result};
 use crate::simulate::rng::Rng;
 use crate::solve::{chunked, lbfgs, Evaluation, IterRecord, Solution, SpdProblem};
-use crate::spd::kernels::{cholesky, rebuild, solve_lower_in_place, sym_eigen, whiten};
+use crate::spd::kernels::{add_congruence_t, add_rebuild, cholesky, solve_lower_in_place, sym_eigen, whiten};
 use crate::spd::{airm_distance, expm_sym, symmetrize, Mat};
 use crate::trials::{PatternGroup, TrialSet};
 
@@ -193,7 +193,7 @@ impl SpdProblem for MaskedKarcherProblem<'_> {
                 part.cost += 0.5 * wi * logs.iter().map(|v| v * v).sum::<f64>();
                 part.hint += wi * step_term(hi / lo);
                 let scaled: Vec<f64> = logs.iter().map(|v| wi * v).collect();
-                part.logs += rebuild(&e.vectors, &scaled);
+                add_rebuild(&mut part.logs, &e.vectors, &scaled);
             }
             part
         });
@@ -215,21 +215,21 @@ impl SpdProblem for MaskedKarcherProblem<'_> {
         // Q_g has orthonormal rows (Q_g Q_gᵀ = I), so this sum stays accurate
         // when X is ill-conditioned, unlike forming ∇F and multiplying by W.
         let p = self.size();
-        let parts: Vec<Mat> = sums
-            .into_par_iter()
-            .zip(factors.par_iter())
-            .zip(self.groups.par_iter())
-            .map(|((b, l), grp)| {
+        // Groups are summed in fixed chunks of 16, in order (thread-count independent).
+        let jobs: Vec<(Option<Mat>, &Option<Mat>, &PatternGroup)> = sums.into_iter().zip(factors.iter()).zip(self.groups.iter()).map(|((b, l), g)| (b, l, g)).collect();
+        let parts = chunked(jobs.len(), 16, |r| {
+            let mut acc = Mat::zeros(p, p);
+            for (b, l, grp) in &jobs[r] {
                 let l = l.as_ref().expect("checked above");
                 let mut q = Mat::from_fn(grp.observed.len(), p, |a, j| w[(grp.observed[a], j)]);
                 solve_lower_in_place(l, &mut q);
-                let b = b.expect("every group has a chunk");
-                q.transpose() * b * q
-            })
-            .collect();
+                add_congruence_t(&mut acc, &q, b.as_ref().expect("every group has a chunk"), -1.0);
+            }
+            acc
+        });
         let mut grad = Mat::zeros(p, p);
         for part in parts {
-            grad -= part;
+            grad += part;
         }
         let grad = symmetrize(&grad);
         Some(Evaluation { cost, grad, step_hint: Some(2.0 / hint) })

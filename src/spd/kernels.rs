@@ -11,10 +11,10 @@
 //! symmetrised explicitly where a caller relies on exact symmetry.
 
 use super::Mat;
-use faer::{MatRef, Side};
+use faer::{Accum, MatRef, Par, Side};
 
 /// From this many channels on, the eigendecomposition goes through faer.
-pub const EIGEN_FAER_FROM: usize = 40;
+pub const EIGEN_FAER_FROM: usize = 56;
 
 fn view(a: &Mat) -> MatRef<'_, f64> {
     MatRef::from_column_major_slice(a.as_slice(), a.nrows(), a.ncols())
@@ -108,6 +108,28 @@ pub fn rebuild(u: &Mat, d: &[f64]) -> Mat {
         }
     }
     out
+}
+
+/// `acc += U diag(d) Uᵀ`, one matrix product (faer, no transpose copy).
+/// The result is symmetric to rounding; callers symmetrise once at the end.
+pub fn add_rebuild(acc: &mut Mat, u: &Mat, d: &[f64]) {
+    let mut scaled = u.clone();
+    for (j, &dj) in d.iter().enumerate() {
+        scaled.column_mut(j).scale_mut(dj);
+    }
+    let n = acc.nrows();
+    let dst = faer::MatMut::from_column_major_slice_mut(acc.as_mut_slice(), n, n);
+    faer::linalg::matmul::matmul(dst, Accum::Add, view(&scaled), view(u).transpose(), 1.0, Par::Seq);
+}
+
+/// `acc += alpha · Qᵀ B Q` for `Q` of size `k×p` and symmetric `B` (`k×k`).
+pub fn add_congruence_t(acc: &mut Mat, q: &Mat, b: &Mat, alpha: f64) {
+    let (k, p) = (q.nrows(), q.ncols());
+    let mut bq = Mat::zeros(k, p);
+    let bq_view = faer::MatMut::from_column_major_slice_mut(bq.as_mut_slice(), k, p);
+    faer::linalg::matmul::matmul(bq_view, Accum::Replace, view(b), view(q), 1.0, Par::Seq);
+    let dst = faer::MatMut::from_column_major_slice_mut(acc.as_mut_slice(), p, p);
+    faer::linalg::matmul::matmul(dst, Accum::Add, view(q).transpose(), view(&bq), alpha, Par::Seq);
 }
 
 /// Symmetric eigendecomposition (values nondecreasing).
