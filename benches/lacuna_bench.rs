@@ -10,12 +10,12 @@ use std::process::Command;
 use std::time::Instant;
 
 use lacuna::schemes::{AirmObserved, Karcher, MaskedKarcherProblem};
-use lacuna::solve::SpdProblem;
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
+use lacuna::solve::SpdProblem;
 use lacuna::spd::kernels::{cholesky, sym_eigen, whiten};
-use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
 use lacuna::trials::TrialSet;
+use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
 use lacuna::{AveragingScheme, SchemeOptions};
 
 struct Args {
@@ -26,7 +26,12 @@ struct Args {
 }
 
 fn parse() -> Args {
-    let mut a = Args { mode: "karcher".into(), sizes: vec![], reference: None, threads: vec![1, 2] };
+    let mut a = Args {
+        mode: "karcher".into(),
+        sizes: vec![],
+        reference: None,
+        threads: vec![1, 2],
+    };
     let argv: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
     while i < argv.len() {
@@ -66,7 +71,10 @@ fn parse() -> Args {
         a.sizes = if a.mode == "masked" {
             vec![(10_000, 64)]
         } else {
-            [100, 10_000].iter().flat_map(|&n| [8, 32, 64, 128].map(|p| (n, p))).collect()
+            [100, 10_000]
+                .iter()
+                .flat_map(|&n| [8, 32, 64, 128].map(|p| (n, p)))
+                .collect()
         };
     }
     a
@@ -76,8 +84,14 @@ fn parse() -> Args {
 fn make_set(n: usize, p: usize, masked: bool, seed: u64) -> TrialSet {
     let mut rng = Rng::new(seed);
     let sigma = random_spd(p, 100.0, &mut rng);
-    let full: Vec<_> = (0..n).map(|_| sample_covariance(&sigma, 4 * p, &mut rng)).collect();
-    let obs = if masked { random_dropout(n, p, 0.2, 8, &mut rng) } else { vec![(0..p).collect(); n] };
+    let full: Vec<_> = (0..n)
+        .map(|_| sample_covariance(&sigma, 4 * p, &mut rng))
+        .collect();
+    let obs = if masked {
+        random_dropout(n, p, 0.2, 8, &mut rng)
+    } else {
+        vec![(0..p).collect(); n]
+    };
     masked_set(&full, obs)
 }
 
@@ -90,7 +104,14 @@ fn floor_seconds(set: &TrialSet, x: &lacuna::Mat) -> f64 {
         let t = Instant::now();
         let factors: Vec<_> = groups
             .par_iter()
-            .map(|g| cholesky(&lacuna::Mat::from_fn(g.observed.len(), g.observed.len(), |a, b| x[(g.observed[a], g.observed[b])])).unwrap())
+            .map(|g| {
+                cholesky(&lacuna::Mat::from_fn(
+                    g.observed.len(),
+                    g.observed.len(),
+                    |a, b| x[(g.observed[a], g.observed[b])],
+                ))
+                .unwrap()
+            })
             .collect();
         let mut pairs = Vec::new();
         for (gi, g) in groups.iter().enumerate() {
@@ -98,7 +119,10 @@ fn floor_seconds(set: &TrialSet, x: &lacuna::Mat) -> f64 {
                 pairs.push((gi, i));
             }
         }
-        let s: f64 = pairs.par_iter().map(|&(gi, i)| sym_eigen(&whiten(&factors[gi], &set.trials()[i].block)).values[0]).sum();
+        let s: f64 = pairs
+            .par_iter()
+            .map(|&(gi, i)| sym_eigen(&whiten(&factors[gi], &set.trials()[i].block)).values[0])
+            .sum();
         std::hint::black_box(s);
         t.elapsed().as_secs_f64()
     };
@@ -124,7 +148,9 @@ fn evaluation_seconds(set: &TrialSet, x: &lacuna::Mat) -> f64 {
 /// behind the size switch in `spd::kernels`.
 fn kernels() {
     use lacuna::spd::kernels::add_rebuild;
-    println!("| p | Cholesky (µs) | whitening (µs) | eigen nalgebra (µs) | eigen faer (µs) | rebuild U·diag·Uᵀ (µs) |");
+    println!(
+        "| p | Cholesky (µs) | whitening (µs) | eigen nalgebra (µs) | eigen faer (µs) | rebuild U·diag·Uᵀ (µs) |"
+    );
     println!("|---|---|---|---|---|---|");
     for p in [8usize, 16, 32, 48, 64, 128, 256] {
         let mut rng = Rng::new(p as u64);
@@ -168,16 +194,26 @@ fn main() {
         return;
     }
     let masked = args.mode == "masked";
-    println!("| N | p | threads | iterations | evaluations | time to tol (s) | per evaluation (ms) | floor (ms) | ratio to floor | gradient norm |");
+    println!(
+        "| N | p | threads | iterations | evaluations | time to tol (s) | per evaluation (ms) | floor (ms) | ratio to floor | gradient norm |"
+    );
     println!("|---|---|---|---|---|---|---|---|---|---|");
     for &(n, p) in &args.sizes {
         let set = make_set(n, p, masked, 7);
         let mut per_thread = Vec::new();
         for &threads in &args.threads {
-            let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().unwrap();
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
             let (secs, r) = pool.install(|| {
                 let t = Instant::now();
-                let r = if masked { AirmObserved.average(&set, &SchemeOptions::default()) } else { Karcher.average(&set, &SchemeOptions::default()) }.unwrap();
+                let r = if masked {
+                    AirmObserved.average(&set, &SchemeOptions::default())
+                } else {
+                    Karcher.average(&set, &SchemeOptions::default())
+                }
+                .unwrap();
                 (t.elapsed().as_secs_f64(), r)
             });
             let floor = pool.install(|| floor_seconds(&set, &r.mean));
@@ -195,7 +231,12 @@ fn main() {
             per_thread.push(secs);
         }
         if per_thread.len() == 2 {
-            println!("|  |  | speedup {}→{} threads: {:.2}× |  |  |  |  |  |  |  |", args.threads[0], args.threads[1], per_thread[0] / per_thread[1]);
+            println!(
+                "|  |  | speedup {}→{} threads: {:.2}× |  |  |  |  |  |  |  |",
+                args.threads[0],
+                args.threads[1],
+                per_thread[0] / per_thread[1]
+            );
         }
         if let Some(py) = &args.reference {
             let dir = std::env::temp_dir().join(format!("lacuna-bench-{}", std::process::id()));
@@ -203,8 +244,16 @@ fn main() {
             let covs: PathBuf = dir.join("covs.npy");
             std::fs::write(&covs, encode_stack_with_nan(&set)).unwrap();
             std::fs::write(dir.join("mask.npy"), encode_mask(&set)).unwrap();
-            let script = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/reference/bench_reference.py");
-            let out = Command::new(py).arg(script).arg(&dir).arg(if masked { "masked" } else { "full" }).output().expect("run the reference");
+            let script = concat!(
+                env!("CARGO_MANIFEST_DIR"),
+                "/tests/reference/bench_reference.py"
+            );
+            let out = Command::new(py)
+                .arg(script)
+                .arg(&dir)
+                .arg(if masked { "masked" } else { "full" })
+                .output()
+                .expect("run the reference");
             let text = String::from_utf8_lossy(&out.stdout);
             let best = per_thread.last().copied().unwrap_or(f64::NAN);
             for line in text.lines() {

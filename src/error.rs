@@ -96,7 +96,11 @@ impl LacunaError {
     }
 
     /// Shorthand for a single trial problem with no file context yet.
-    pub fn trial(trial: Option<usize>, channel: Option<String>, message: impl Into<String>) -> Self {
+    pub fn trial(
+        trial: Option<usize>,
+        channel: Option<String>,
+        message: impl Into<String>,
+    ) -> Self {
         LacunaError::InvalidTrials {
             source_name: "input".into(),
             problems: vec![TrialProblem {

@@ -16,6 +16,9 @@
 //! Research software, not a medical device: results inform analysis; they do
 //! not diagnose. Follow local rules and licensed clinical practice.
 
+// `!(x > 0.0)` is used on purpose throughout: NaN must fail such checks.
+#![allow(clippy::neg_cmp_op_on_partial_ord)]
+
 pub mod diagnose;
 pub mod error;
 pub mod report;
@@ -26,6 +29,6 @@ pub mod spd;
 pub mod trials;
 
 pub use error::{LacunaError, Result};
-pub use schemes::{all_schemes, scheme_by_name, AveragingScheme, MeanResult, SchemeOptions};
+pub use schemes::{AveragingScheme, MeanResult, SchemeOptions, all_schemes, scheme_by_name};
 pub use spd::Mat;
 pub use trials::TrialSet;

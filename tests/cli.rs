@@ -36,8 +36,15 @@ impl Drop for Dir {
 }
 
 fn lacuna(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_lacuna")).args(args).output().unwrap();
-    (out.status.code().unwrap_or(-1), String::from_utf8_lossy(&out.stdout).into(), String::from_utf8_lossy(&out.stderr).into())
+    let out = Command::new(env!("CARGO_BIN_EXE_lacuna"))
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into(),
+        String::from_utf8_lossy(&out.stderr).into(),
+    )
 }
 
 fn s(p: &Path) -> &str {
@@ -48,9 +55,14 @@ fn s(p: &Path) -> &str {
 fn write_set(d: &Dir, n: usize, p: usize, seed: u64) -> (PathBuf, PathBuf) {
     let mut rng = Rng::new(seed);
     let sigma = random_spd(p, 20.0, &mut rng);
-    let full: Vec<_> = (0..n).map(|_| sample_covariance(&sigma, 40, &mut rng)).collect();
+    let full: Vec<_> = (0..n)
+        .map(|_| sample_covariance(&sigma, 40, &mut rng))
+        .collect();
     let set = masked_set(&full, random_dropout(n, p, 0.3, 2, &mut rng));
-    (d.write("covs.npy", &encode_stack_with_nan(&set)), d.write("mask.npy", &encode_mask(&set)))
+    (
+        d.write("covs.npy", &encode_stack_with_nan(&set)),
+        d.write("mask.npy", &encode_mask(&set)),
+    )
 }
 
 /// Complete stack as raw data for hand-made corruptions.
@@ -84,17 +96,36 @@ fn mean_writes_npy_and_report_with_contract_fields() {
     let d = Dir::new("ok");
     let (covs, mask) = write_set(&d, 60, 6, 1);
     let (out, rep) = (d.path("mean.npy"), d.path("r.json"));
-    let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--scheme", "airm-observed", "--out", s(&out), "--report", s(&rep)]);
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--scheme",
+        "airm-observed",
+        "--out",
+        s(&out),
+        "--report",
+        s(&rep),
+    ]);
     assert_eq!(code, 0, "{err}");
     let m = lacuna::trials::io::read_matrix(&out).unwrap();
     assert_eq!(m.nrows(), 6);
-    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
     assert_eq!(r["converged"], true);
     assert!(r["iterations"].as_u64().unwrap() > 0);
     assert!(r["gradient_norm"].as_f64().unwrap() <= 1e-10);
     assert!(r["unconstrained_pairs"].is_array());
     assert_eq!(r["coobservation"].as_array().unwrap().len(), 6);
-    assert!(!std::fs::read_dir(&d.0).unwrap().any(|e| e.unwrap().file_name().to_string_lossy().contains("partial")));
+    assert!(
+        !std::fs::read_dir(&d.0).unwrap().any(|e| e
+            .unwrap()
+            .file_name()
+            .to_string_lossy()
+            .contains("partial"))
+    );
 }
 
 // NaN-encoded stack without a mask: the mask is inferred; CSV output has a header.
@@ -115,9 +146,24 @@ fn infers_mask_from_nan_and_writes_csv() {
 fn every_full_data_scheme_runs() {
     let d = Dir::new("schemes");
     let covs = d.write("covs.npy", &encode_f64(&[30, 4, 4], &complete_stack(30, 4)));
-    for scheme in ["airm", "log-euclidean", "arithmetic", "harmonic", "airm-observed"] {
+    for scheme in [
+        "airm",
+        "log-euclidean",
+        "arithmetic",
+        "harmonic",
+        "airm-observed",
+    ] {
         let out = d.path(&format!("{scheme}.npy"));
-        let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--scheme", scheme, "--out", s(&out), "--quiet"]);
+        let (code, _, err) = lacuna(&[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--scheme",
+            scheme,
+            "--out",
+            s(&out),
+            "--quiet",
+        ]);
         assert_eq!(code, 0, "{scheme}: {err}");
     }
 }
@@ -128,8 +174,38 @@ fn output_does_not_depend_on_threads() {
     let d = Dir::new("threads");
     let (covs, mask) = write_set(&d, 200, 8, 3);
     let (a, b) = (d.path("a.npy"), d.path("b.npy"));
-    assert_eq!(lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&a), "--threads", "1", "--quiet"]).0, 0);
-    assert_eq!(lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&b), "--threads", "2", "--quiet"]).0, 0);
+    assert_eq!(
+        lacuna(&[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--out",
+            s(&a),
+            "--threads",
+            "1",
+            "--quiet"
+        ])
+        .0,
+        0
+    );
+    assert_eq!(
+        lacuna(&[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--out",
+            s(&b),
+            "--threads",
+            "2",
+            "--quiet"
+        ])
+        .0,
+        0
+    );
     assert_eq!(std::fs::read(a).unwrap(), std::fs::read(b).unwrap());
 }
 
@@ -140,7 +216,11 @@ fn refuses_non_symmetric_matrix() {
     data[2 * 16 + 4 + 3] += 0.5; // trial 2, row 1, column 3
     let covs = d.write("covs.npy", &encode_f64(&[5, 4, 4], &data));
     let out = d.path("m.npy");
-    expect_refusal(&["mean", "--covs", s(&covs), "--out", s(&out)], &out, &["covs.npy", "trial 2", "not symmetric"]);
+    expect_refusal(
+        &["mean", "--covs", s(&covs), "--out", s(&out)],
+        &out,
+        &["covs.npy", "trial 2", "not symmetric"],
+    );
 }
 
 #[test]
@@ -155,7 +235,15 @@ fn refuses_block_that_is_not_positive_definite() {
     data[9 + 2 * 3 + 2] = data[9 + 3 + 1];
     let covs = d.write("covs.npy", &encode_f64(&[4, 3, 3], &data));
     let out = d.path("m.npy");
-    expect_refusal(&["mean", "--covs", s(&covs), "--out", s(&out)], &out, &["trial 1, channel ch2", "not positive definite", "observed channels: ch0, ch1, ch2"]);
+    expect_refusal(
+        &["mean", "--covs", s(&covs), "--out", s(&out)],
+        &out,
+        &[
+            "trial 1, channel ch2",
+            "not positive definite",
+            "observed channels: ch0, ch1, ch2",
+        ],
+    );
 }
 
 #[test]
@@ -166,7 +254,19 @@ fn refuses_nan_inside_observed_block() {
     let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &data));
     let mask = d.write("mask.npy", &encode_u8(&[3, 3], &[1; 9]));
     let out = d.path("m.npy");
-    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["trial 2, channel ch0", "NaN"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["trial 2, channel ch0", "NaN"],
+    );
 }
 
 #[test]
@@ -175,36 +275,111 @@ fn refuses_shape_mismatch_dtype_and_truncation() {
     let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &complete_stack(3, 3)));
     let mask = d.write("mask.npy", &encode_u8(&[3, 4], &[1; 12]));
     let out = d.path("m.npy");
-    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["mask.npy", "does not match"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["mask.npy", "does not match"],
+    );
 
     let mut int_stack = encode_f64(&[3, 3, 3], &complete_stack(3, 3));
     let pos = int_stack.windows(3).position(|w| w == b"<f8").unwrap();
     int_stack[pos..pos + 3].copy_from_slice(b"<i8");
     let ints = d.write("ints.npy", &int_stack);
-    expect_refusal(&["mean", "--covs", s(&ints), "--out", s(&out)], &out, &["ints.npy", "dtype <i8"]);
+    expect_refusal(
+        &["mean", "--covs", s(&ints), "--out", s(&out)],
+        &out,
+        &["ints.npy", "dtype <i8"],
+    );
 
     let full = encode_f64(&[3, 3, 3], &complete_stack(3, 3));
     let cut = d.write("cut.npy", &full[..full.len() - 20]);
-    expect_refusal(&["mean", "--covs", s(&cut), "--out", s(&out)], &out, &["cut.npy", "truncated"]);
+    expect_refusal(
+        &["mean", "--covs", s(&cut), "--out", s(&out)],
+        &out,
+        &["cut.npy", "truncated"],
+    );
 
     let junk = d.write("junk.npy", b"definitely not an array");
-    expect_refusal(&["mean", "--covs", s(&junk), "--out", s(&out)], &out, &["junk.npy", "not an NPY file"]);
+    expect_refusal(
+        &["mean", "--covs", s(&junk), "--out", s(&out)],
+        &out,
+        &["junk.npy", "not an NPY file"],
+    );
 }
 
 #[test]
 fn refuses_trial_without_channels_and_bad_weights() {
     let d = Dir::new("empty");
     let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &complete_stack(3, 3)));
-    let mask = d.write("mask.npy", &encode_u8(&[3, 3], &[1, 1, 1, 0, 0, 0, 1, 1, 1]));
+    let mask = d.write(
+        "mask.npy",
+        &encode_u8(&[3, 3], &[1, 1, 1, 0, 0, 0, 1, 1, 1]),
+    );
     let out = d.path("m.npy");
-    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["trial 1: no channel is observed"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["trial 1: no channel is observed"],
+    );
 
     let neg = d.write("w.csv", b"weight\n1\n-2\n1\n");
-    expect_refusal(&["mean", "--covs", s(&covs), "--weights", s(&neg), "--out", s(&out)], &out, &["trial 1", "negative"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--weights",
+            s(&neg),
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["trial 1", "negative"],
+    );
     let zero = d.write("z.npy", &encode_f64(&[3], &[0.0, 0.0, 0.0]));
-    expect_refusal(&["mean", "--covs", s(&covs), "--weights", s(&zero), "--out", s(&out)], &out, &["all weights are zero"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--weights",
+            s(&zero),
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["all weights are zero"],
+    );
     let short = d.write("short.npy", &encode_f64(&[2], &[1.0, 1.0]));
-    expect_refusal(&["mean", "--covs", s(&covs), "--weights", s(&short), "--out", s(&out)], &out, &["2 weights for 3 trials"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--weights",
+            s(&short),
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["2 weights for 3 trials"],
+    );
 }
 
 #[test]
@@ -213,11 +388,39 @@ fn unobserved_channel_refused_unless_dropped() {
     let covs = d.write("covs.npy", &encode_f64(&[3, 3, 3], &complete_stack(3, 3)));
     let mask = d.write("mask.csv", b"Fz,Cz,Pz\n1,0,1\n1,0,1\n1,0,1\n");
     let (out, rep) = (d.path("m.csv"), d.path("r.json"));
-    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out)], &out, &["channel Cz is observed in no trial", "--drop-unobserved"]);
-    let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out), "--report", s(&rep), "--drop-unobserved"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["channel Cz is observed in no trial", "--drop-unobserved"],
+    );
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--out",
+        s(&out),
+        "--report",
+        s(&rep),
+        "--drop-unobserved",
+    ]);
     assert_eq!(code, 0, "{err}");
-    assert!(std::fs::read_to_string(&out).unwrap().starts_with("Fz,Pz\n"));
-    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert!(
+        std::fs::read_to_string(&out)
+            .unwrap()
+            .starts_with("Fz,Pz\n")
+    );
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
     assert_eq!(r["dropped_channels"], serde_json::json!(["Cz"]));
 }
 
@@ -226,12 +429,28 @@ fn full_data_scheme_on_masked_data_is_refused() {
     let d = Dir::new("fullmask");
     let (covs, mask) = write_set(&d, 30, 5, 4);
     let out = d.path("m.npy");
-    expect_refusal(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--scheme", "airm", "--out", s(&out)], &out, &["needs every channel", "airm-observed"]);
+    expect_refusal(
+        &[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--scheme",
+            "airm",
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &["needs every channel", "airm-observed"],
+    );
 }
 
 #[test]
 fn usage_errors_exit_2() {
-    let (code, _, err) = lacuna(&["mean", "--covs", "x.npy", "--out", "y.npy", "--scheme", "nonesuch"]);
+    let (code, _, err) = lacuna(&[
+        "mean", "--covs", "x.npy", "--out", "y.npy", "--scheme", "nonesuch",
+    ]);
     assert_eq!(code, 2);
     assert!(err.contains("unknown scheme 'nonesuch'"));
     assert_eq!(lacuna(&["mean", "--out", "y.npy"]).0, 2);
@@ -243,10 +462,23 @@ fn non_convergence_exits_4_and_still_writes() {
     let d = Dir::new("maxiter");
     let (covs, mask) = write_set(&d, 50, 6, 6);
     let (out, rep) = (d.path("m.npy"), d.path("r.json"));
-    let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--mask", s(&mask), "--out", s(&out), "--report", s(&rep), "--max-iter", "1"]);
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--out",
+        s(&out),
+        "--report",
+        s(&rep),
+        "--max-iter",
+        "1",
+    ]);
     assert_eq!(code, 4, "{err}");
     assert!(out.exists());
-    let r: serde_json::Value = serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
     assert_eq!(r["converged"], false);
     assert_eq!(r["stop_reason"], "max-iterations");
     assert!(r["advice"][0].as_str().unwrap().contains("--max-iter"));

@@ -3,7 +3,10 @@
 mod common;
 
 use common::{fixture, mat, rel_err, spd};
-use lacuna::spd::{airm_distance, exp_map, expm_sym, geodesic, log_euclidean_distance, log_map, logm_spd, sqrtm_spd, two_point_mean, Mat};
+use lacuna::spd::{
+    Mat, airm_distance, exp_map, expm_sym, geodesic, log_euclidean_distance, log_map, logm_spd,
+    sqrtm_spd, two_point_mean,
+};
 use proptest::prelude::*;
 
 // Bhatia 2007, Positive Definite Matrices, ch. 4: for 2×2 matrices of
@@ -41,7 +44,10 @@ fn two_point_mean_matches_square_root_formula_and_riccati() {
 #[test]
 fn distance_closed_form() {
     let e = std::f64::consts::E;
-    let d = airm_distance(&Mat::identity(2, 2), &Mat::from_diagonal(&nalgebra::DVector::from_vec(vec![e, 1.0 / e])));
+    let d = airm_distance(
+        &Mat::identity(2, 2),
+        &Mat::from_diagonal(&nalgebra::DVector::from_vec(vec![e, 1.0 / e])),
+    );
     assert!((d - 2f64.sqrt()).abs() < 1e-15);
 }
 
@@ -56,9 +62,18 @@ fn matrix_functions_match_scipy() {
         let p = case["p"].as_u64().unwrap();
         let (a, b, s) = (mat(&case["a"]), mat(&case["b"]), mat(&case["s"]));
         let tol = (cond * 1e-15).max(1e-12);
-        assert!(rel_err(&logm_spd(&a), &mat(&case["logm_a"])) < tol, "logm p={p}");
-        assert!(rel_err(&sqrtm_spd(&a), &mat(&case["sqrtm_a"])) < tol, "sqrtm p={p}");
-        assert!(rel_err(&expm_sym(&s), &mat(&case["expm_s"])) < 1e-12, "expm p={p}");
+        assert!(
+            rel_err(&logm_spd(&a), &mat(&case["logm_a"])) < tol,
+            "logm p={p}"
+        );
+        assert!(
+            rel_err(&sqrtm_spd(&a), &mat(&case["sqrtm_a"])) < tol,
+            "sqrtm p={p}"
+        );
+        assert!(
+            rel_err(&expm_sym(&s), &mat(&case["expm_s"])) < 1e-12,
+            "expm p={p}"
+        );
         let d = airm_distance(&a, &b);
         let dref = case["airm_ab"].as_f64().unwrap();
         assert!((d - dref).abs() < tol * dref, "airm p={p}: {d} vs {dref}");

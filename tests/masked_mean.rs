@@ -8,20 +8,26 @@ use lacuna::schemes::{AirmObserved, InitRule, Karcher, MaskedKarcherProblem};
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, sample_covariance};
 use lacuna::spd::functions::inv_spd;
-use lacuna::spd::{airm_distance, Mat};
-use lacuna::trials::{default_channel_names, Trial, TrialSet};
+use lacuna::spd::{Mat, airm_distance};
+use lacuna::trials::{Trial, TrialSet, default_channel_names};
 use lacuna::{AveragingScheme, SchemeOptions};
 
 fn solve(s: &TrialSet) -> lacuna::MeanResult {
     let r = AirmObserved.average(s, &SchemeOptions::default()).unwrap();
-    assert!(r.diagnostics.converged, "not converged: {:?} {:?}", r.diagnostics.stop_reason, r.diagnostics.gradient_norm);
+    assert!(
+        r.diagnostics.converged,
+        "not converged: {:?} {:?}",
+        r.diagnostics.stop_reason, r.diagnostics.gradient_norm
+    );
     r
 }
 
 fn population_trials(p: usize, n: usize, t: usize, seed: u64) -> (Mat, Vec<Mat>) {
     let mut rng = Rng::new(seed);
     let sigma = lacuna::simulate::stacks::random_spd(p, 30.0, &mut rng);
-    let full = (0..n).map(|_| sample_covariance(&sigma, t, &mut rng)).collect();
+    let full = (0..n)
+        .map(|_| sample_covariance(&sigma, t, &mut rng))
+        .collect();
     (sigma, full)
 }
 
@@ -51,9 +57,13 @@ fn gradient_matches_finite_differences() {
         let mut v = lacuna::simulate::stacks::gaussian(7, 7, &mut rng);
         v = (&v + v.transpose()) * 0.5 * (x.norm() / 7.0);
         let h = 1e-5;
-        let fd = (problem.cost(&(&x + &v * h)).unwrap() - problem.cost(&(&x - &v * h)).unwrap()) / (2.0 * h);
+        let fd = (problem.cost(&(&x + &v * h)).unwrap() - problem.cost(&(&x - &v * h)).unwrap())
+            / (2.0 * h);
         let an: f64 = g.iter().zip(v.iter()).map(|(a, b)| a * b).sum();
-        assert!((fd - an).abs() < 1e-6 * an.abs().max(1e-3), "fd {fd} vs analytic {an}");
+        assert!(
+            (fd - an).abs() < 1e-6 * an.abs().max(1e-3),
+            "fd {fd} vs analytic {an}"
+        );
     }
 }
 
@@ -65,7 +75,14 @@ fn agrees_with_scipy_reference_optimum() {
     for case in f["cases"].as_array().unwrap() {
         let p = case["p"].as_u64().unwrap() as usize;
         let observed: Vec<Vec<usize>> = serde_json::from_value(case["observed"].clone()).unwrap();
-        let trials: Vec<Trial> = observed.into_iter().zip(case["blocks"].as_array().unwrap()).map(|(o, b)| Trial { observed: o, block: mat(b) }).collect();
+        let trials: Vec<Trial> = observed
+            .into_iter()
+            .zip(case["blocks"].as_array().unwrap())
+            .map(|(o, b)| Trial {
+                observed: o,
+                block: mat(b),
+            })
+            .collect();
         let s = TrialSet::new(default_channel_names(p), trials, None, "fixture").unwrap();
         assert!(identifiability(&s).unconstrained_pairs.is_empty());
         let r = solve(&s);
@@ -73,7 +90,11 @@ fn agrees_with_scipy_reference_optimum() {
         assert!(d <= 1e-7, "p={p}: distance to scipy optimum {d}");
         let cref = case["cost"].as_f64().unwrap();
         // The reference cost uses raw weights 1/n, as ours does after normalising.
-        assert!(r.diagnostics.cost.unwrap() <= cref * (1.0 + 1e-10), "ours {} vs scipy {cref}", r.diagnostics.cost.unwrap());
+        assert!(
+            r.diagnostics.cost.unwrap() <= cref * (1.0 + 1e-10),
+            "ours {} vs scipy {cref}",
+            r.diagnostics.cost.unwrap()
+        );
     }
 }
 
@@ -103,12 +124,18 @@ fn permutation_and_diagonal_scaling_equivariance() {
     for (k, &c) in perm.iter().enumerate() {
         inv[c] = k;
     }
-    let pfull: Vec<Mat> = full.iter().map(|m| Mat::from_fn(6, 6, |a, b| m[(perm[a], perm[b])])).collect();
-    let pobs: Vec<Vec<usize>> = obs.iter().map(|o| {
-        let mut v: Vec<usize> = o.iter().map(|&c| inv[c]).collect();
-        v.sort();
-        v
-    }).collect();
+    let pfull: Vec<Mat> = full
+        .iter()
+        .map(|m| Mat::from_fn(6, 6, |a, b| m[(perm[a], perm[b])]))
+        .collect();
+    let pobs: Vec<Vec<usize>> = obs
+        .iter()
+        .map(|o| {
+            let mut v: Vec<usize> = o.iter().map(|&c| inv[c]).collect();
+            v.sort();
+            v
+        })
+        .collect();
     let xp = solve(&masked_set(&pfull, pobs)).mean;
     let expected = Mat::from_fn(6, 6, |a, b| x[(perm[a], perm[b])]);
     assert!(airm_distance(&xp, &expected) < 1e-9);
@@ -129,14 +156,38 @@ fn masked_mean_recovers_complete_data_mean_best() {
     for seed in 0..5u64 {
         let (_, full) = population_trials(12, 120, 40, 100 + seed);
         let obs = random_dropout(120, 12, 0.35, 4, &mut Rng::new(200 + seed));
-        let complete_ref = Karcher.average(&masked_set(&full, vec![(0..12).collect(); 120]), &SchemeOptions::default()).unwrap().mean;
+        let complete_ref = Karcher
+            .average(
+                &masked_set(&full, vec![(0..12).collect(); 120]),
+                &SchemeOptions::default(),
+            )
+            .unwrap()
+            .mean;
         let s = masked_set(&full, obs.clone());
         let masked = solve(&s).mean;
         let available = InitRule::AvailableCase.start(&s);
-        let complete_only: Vec<Mat> = full.iter().zip(&obs).filter(|(_, o)| o.len() == 12).map(|(m, _)| m.clone()).collect();
-        let only = Karcher.average(&TrialSet::from_full(default_channel_names(12), complete_only, None).unwrap(), &SchemeOptions::default()).unwrap().mean;
-        let (dm, da, dc) = (airm_distance(&masked, &complete_ref), airm_distance(&available, &complete_ref), airm_distance(&only, &complete_ref));
-        assert!(dm < da && dm < dc, "seed {seed}: masked {dm:.4}, available-case {da:.4}, complete-only {dc:.4}");
+        let complete_only: Vec<Mat> = full
+            .iter()
+            .zip(&obs)
+            .filter(|(_, o)| o.len() == 12)
+            .map(|(m, _)| m.clone())
+            .collect();
+        let only = Karcher
+            .average(
+                &TrialSet::from_full(default_channel_names(12), complete_only, None).unwrap(),
+                &SchemeOptions::default(),
+            )
+            .unwrap()
+            .mean;
+        let (dm, da, dc) = (
+            airm_distance(&masked, &complete_ref),
+            airm_distance(&available, &complete_ref),
+            airm_distance(&only, &complete_ref),
+        );
+        assert!(
+            dm < da && dm < dc,
+            "seed {seed}: masked {dm:.4}, available-case {da:.4}, complete-only {dc:.4}"
+        );
     }
 }
 
@@ -146,7 +197,15 @@ fn masked_mean_recovers_complete_data_mean_best() {
 fn never_coobserved_pairs_are_reported_and_completed() {
     let (_, full) = population_trials(5, 60, 30, 9);
     // Channel 0 and channel 4 are never in the same trial.
-    let obs: Vec<Vec<usize>> = (0..60).map(|i| if i % 2 == 0 { vec![0, 1, 2, 3] } else { vec![1, 2, 3, 4] }).collect();
+    let obs: Vec<Vec<usize>> = (0..60)
+        .map(|i| {
+            if i % 2 == 0 {
+                vec![0, 1, 2, 3]
+            } else {
+                vec![1, 2, 3, 4]
+            }
+        })
+        .collect();
     let s = masked_set(&full, obs);
     let r = solve(&s);
     assert_eq!(r.diagnostics.unconstrained_pairs, vec![[0, 4]]);
@@ -161,10 +220,18 @@ fn never_coobserved_pairs_are_reported_and_completed() {
 fn never_observed_channel_is_refused() {
     let (_, full) = population_trials(4, 10, 20, 10);
     let s = masked_set(&full, vec![vec![0, 1, 3]; 10]);
-    let e = AirmObserved.average(&s, &SchemeOptions::default()).unwrap_err();
-    assert!(e.to_string().contains("channel ch2 is observed in no trial"), "{e}");
+    let e = AirmObserved
+        .average(&s, &SchemeOptions::default())
+        .unwrap_err();
+    assert!(
+        e.to_string()
+            .contains("channel ch2 is observed in no trial"),
+        "{e}"
+    );
     assert!(e.to_string().contains("--drop-unobserved"));
-    let dropped = s.without_channels(&identifiability(&s).never_observed).unwrap();
+    let dropped = s
+        .without_channels(&identifiability(&s).never_observed)
+        .unwrap();
     assert_eq!(solve(&dropped).mean.nrows(), 3);
 }
 
@@ -173,7 +240,11 @@ fn never_observed_channel_is_refused() {
 fn multi_start_agrees_on_ordinary_data() {
     let (_, full) = population_trials(6, 40, 30, 11);
     let s = masked_set(&full, random_dropout(40, 6, 0.3, 2, &mut Rng::new(12)));
-    let o = SchemeOptions { starts: 5, seed: 3, ..SchemeOptions::default() };
+    let o = SchemeOptions {
+        starts: 5,
+        seed: 3,
+        ..SchemeOptions::default()
+    };
     let r = AirmObserved.average(&s, &o).unwrap();
     assert_eq!(r.diagnostics.starts.len(), 5);
     assert_eq!(r.diagnostics.starts_agree, Some(true));
@@ -187,12 +258,30 @@ fn multi_start_agrees_on_ordinary_data() {
 #[test]
 fn masked_cost_is_not_geodesically_convex() {
     let c = 4f64.exp();
-    let s = TrialSet::new(default_channel_names(2), vec![Trial { observed: vec![0], block: Mat::from_element(1, 1, c) }], None, "t").unwrap();
+    let s = TrialSet::new(
+        default_channel_names(2),
+        vec![Trial {
+            observed: vec![0],
+            block: Mat::from_element(1, 1, c),
+        }],
+        None,
+        "t",
+    )
+    .unwrap();
     let problem = MaskedKarcherProblem::new(&s);
     // Geodesic through I: X(t) = exp(t V) with V = [[0,1],[1,0]].
-    let f = |t: f64| problem.cost(&lacuna::spd::expm_sym(&(Mat::from_row_slice(2, 2, &[0.0, 1.0, 1.0, 0.0]) * t))).unwrap();
+    let f = |t: f64| {
+        problem
+            .cost(&lacuna::spd::expm_sym(
+                &(Mat::from_row_slice(2, 2, &[0.0, 1.0, 1.0, 0.0]) * t),
+            ))
+            .unwrap()
+    };
     let h = 1e-3;
     let second = (f(h) - 2.0 * f(0.0) + f(-h)) / (h * h);
     // F = ½ δ², so F'' = ½·(−2 ln c)·… ; the exact value is −ln c = −4 here.
-    assert!((second - (-c.ln())).abs() < 1e-4, "second derivative {second}");
+    assert!(
+        (second - (-c.ln())).abs() < 1e-4,
+        "second derivative {second}"
+    );
 }

@@ -12,7 +12,7 @@ use lacuna::schemes::InitRule;
 use lacuna::solve::StopRule;
 use lacuna::trials::io::{load_trial_set, write_matrix};
 use lacuna::trials::npy::write_atomic;
-use lacuna::{scheme_by_name, LacunaError, Result, SchemeOptions};
+use lacuna::{LacunaError, Result, SchemeOptions, scheme_by_name};
 
 #[derive(Args, Debug)]
 pub struct MeanArgs {
@@ -69,34 +69,62 @@ pub struct MeanArgs {
 pub fn run(a: MeanArgs) -> Result<i32> {
     let scheme = scheme_by_name(&a.scheme).ok_or_else(|| {
         let names: Vec<&str> = lacuna::all_schemes().iter().map(|s| s.name()).collect();
-        LacunaError::InvalidOption(format!("unknown scheme '{}'; choose one of: {}", a.scheme, names.join(", ")))
+        LacunaError::InvalidOption(format!(
+            "unknown scheme '{}'; choose one of: {}",
+            a.scheme,
+            names.join(", ")
+        ))
     })?;
-    let init = InitRule::from_name(&a.init)
-        .ok_or_else(|| LacunaError::InvalidOption(format!("unknown --init '{}'; choose available-case, diagonal or scaled-identity", a.init)))?;
+    let init = InitRule::from_name(&a.init).ok_or_else(|| {
+        LacunaError::InvalidOption(format!(
+            "unknown --init '{}'; choose available-case, diagonal or scaled-identity",
+            a.init
+        ))
+    })?;
     if !(a.tol > 0.0) || a.max_iter == 0 || a.starts == 0 || a.threads == Some(0) {
-        return Err(LacunaError::InvalidOption("--tol must be positive; --max-iter, --starts and --threads at least 1".into()));
+        return Err(LacunaError::InvalidOption(
+            "--tol must be positive; --max-iter, --starts and --threads at least 1".into(),
+        ));
     }
     if let Some(n) = a.threads {
-        let _ = rayon::ThreadPoolBuilder::new().num_threads(n).build_global();
+        let _ = rayon::ThreadPoolBuilder::new()
+            .num_threads(n)
+            .build_global();
     }
     let started = Instant::now();
     let mut set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
     let mut dropped = Vec::new();
     let ident0 = identifiability(&set);
     if a.drop_unobserved && !ident0.never_observed.is_empty() {
-        dropped = ident0.never_observed.iter().map(|&c| set.channels()[c].clone()).collect();
+        dropped = ident0
+            .never_observed
+            .iter()
+            .map(|&c| set.channels()[c].clone())
+            .collect();
         set = set.without_channels(&ident0.never_observed)?;
     }
     let ident = identifiability(&set);
     let show_progress = !a.quiet && std::io::stderr().is_terminal();
-    let observer: Option<Arc<dyn Fn(&lacuna::solve::IterRecord) + Send + Sync>> = if show_progress {
+    let observer: Option<lacuna::schemes::Observer> = if show_progress {
         Some(Arc::new(|r: &lacuna::solve::IterRecord| {
-            eprint!("\r  iteration {:>4}  cost {:.6e}  gradient {:.3e}   ", r.iteration, r.cost, r.gradient_norm);
+            eprint!(
+                "\r  iteration {:>4}  cost {:.6e}  gradient {:.3e}   ",
+                r.iteration, r.cost, r.gradient_norm
+            );
         }))
     } else {
         None
     };
-    let options = SchemeOptions { stop: StopRule { tol: a.tol, max_iter: a.max_iter }, init, starts: a.starts, seed: a.seed, observer };
+    let options = SchemeOptions {
+        stop: StopRule {
+            tol: a.tol,
+            max_iter: a.max_iter,
+        },
+        init,
+        starts: a.starts,
+        seed: a.seed,
+        observer,
+    };
     let result = scheme.average(&set, &options)?;
     if show_progress {
         eprintln!();
@@ -104,7 +132,16 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     let elapsed = started.elapsed().as_secs_f64();
     write_matrix(&a.out, &result.mean, set.channels())?;
     let summary = summarize(&set, &result.mean);
-    let report = MeanReport::new(&result, &ident, &summary, set.channels(), set.len(), dropped.clone(), elapsed, rayon::current_num_threads());
+    let report = MeanReport::new(
+        &result,
+        &ident,
+        &summary,
+        set.channels(),
+        set.len(),
+        dropped.clone(),
+        elapsed,
+        rayon::current_num_threads(),
+    );
     let json = report.to_json();
     if let Some(path) = &a.report {
         write_atomic(path, json.as_bytes())?;
@@ -115,14 +152,26 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     let d = &result.diagnostics;
     if !a.quiet {
         let incomplete = (0..set.len()).filter(|&i| !set.is_complete(i)).count();
-        eprintln!("lacuna mean: {} trials ({incomplete} incomplete), {} channels, scheme {}", set.len(), set.n_channels(), result.scheme);
+        eprintln!(
+            "lacuna mean: {} trials ({incomplete} incomplete), {} channels, scheme {}",
+            set.len(),
+            set.n_channels(),
+            result.scheme
+        );
         if !dropped.is_empty() {
-            eprintln!("  dropped channels observed in no trial: {}", dropped.join(", "));
+            eprintln!(
+                "  dropped channels observed in no trial: {}",
+                dropped.join(", ")
+            );
         }
         if d.iterative {
             eprintln!(
                 "  {} after {} iterations: gradient norm {:.2e} (tolerance {:.0e}), cost {:.6e}",
-                if d.converged { "converged" } else { "NOT converged" },
+                if d.converged {
+                    "converged"
+                } else {
+                    "NOT converged"
+                },
                 d.iterations,
                 d.gradient_norm.unwrap_or(f64::NAN),
                 a.tol,
@@ -132,7 +181,12 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         for n in &d.notes {
             eprintln!("  note: {n}");
         }
-        eprintln!("  condition number {:.3e}, log det {:.4}; wrote {}", summary.condition_number, summary.log_det_mean, a.out.display());
+        eprintln!(
+            "  condition number {:.3e}, log det {:.4}; wrote {}",
+            summary.condition_number,
+            summary.log_det_mean,
+            a.out.display()
+        );
     }
     if !d.converged {
         for line in report.advice {

@@ -19,7 +19,13 @@ use clap::{Parser, Subcommand};
 /// Research software, not a medical device: results inform analysis; they do
 /// not diagnose. Follow local rules and licensed clinical practice.
 #[derive(Parser, Debug)]
-#[command(name = "lacuna", version, about, long_about, after_help = "Start with the demo:\n  lacuna mean --covs demo-data/covs.npy --mask demo-data/mask.csv --out mean.csv --report report.json\n\nExit codes: 0 ok; 1 could not write output; 2 usage error; 3 invalid input (nothing written); 4 numerical failure (mean written, report says why).")]
+#[command(
+    name = "lacuna",
+    version,
+    about,
+    long_about,
+    after_help = "Start with the demo:\n  lacuna mean --covs demo-data/covs.npy --mask demo-data/mask.csv --out mean.csv --report report.json\n\nExit codes: 0 ok; 1 could not write output; 2 usage error; 3 invalid input (nothing written); 4 numerical failure (mean written, report says why)."
+)]
 pub struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -48,7 +54,11 @@ pub fn run() -> i32 {
         Command::Mean(args) => mean::run(args),
         Command::Schemes => {
             for s in lacuna::all_schemes() {
-                let missing = if s.handles_missing() { "accepts missing channels" } else { "complete trials only" };
+                let missing = if s.handles_missing() {
+                    "accepts missing channels"
+                } else {
+                    "complete trials only"
+                };
                 println!("{:<15} {} ({missing})", s.name(), s.summary());
             }
             Ok(0)

@@ -3,12 +3,12 @@
 use std::path::{Path, PathBuf};
 
 use clap::{Args, ValueEnum};
-use lacuna::simulate::headset::{simulate, HeadsetParams};
+use lacuna::simulate::headset::{HeadsetParams, simulate};
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
+use lacuna::trials::TrialSet;
 use lacuna::trials::io::{encode_mask, encode_stack_with_nan, write_matrix};
 use lacuna::trials::npy::write_atomic;
-use lacuna::trials::TrialSet;
 use lacuna::{LacunaError, Result};
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
@@ -57,7 +57,12 @@ fn mask_csv(set: &TrialSet) -> Vec<u8> {
     s.push('\n');
     let p = set.n_channels();
     for row in set.mask().chunks(p) {
-        s.push_str(&row.iter().map(|&b| if b { "1" } else { "0" }).collect::<Vec<_>>().join(","));
+        s.push_str(
+            &row.iter()
+                .map(|&b| if b { "1" } else { "0" })
+                .collect::<Vec<_>>()
+                .join(","),
+        );
         s.push('\n');
     }
     s.into_bytes()
@@ -70,21 +75,42 @@ fn write_set(dir: &Path, set: &TrialSet) -> Result<()> {
 }
 
 pub fn run(a: SynthArgs) -> Result<i32> {
-    if a.channels < 2 || a.trials == 0 || a.samples == 0 || !(0.0..=1.0).contains(&a.dropout) || a.max_lost == 0 || !(a.condition >= 1.0) {
+    if a.channels < 2
+        || a.trials == 0
+        || a.samples == 0
+        || !(0.0..=1.0).contains(&a.dropout)
+        || a.max_lost == 0
+        || !(a.condition >= 1.0)
+    {
         return Err(LacunaError::InvalidOption("need --channels ≥ 2, --trials ≥ 1, --samples ≥ 1, --dropout in [0, 1], --max-lost ≥ 1, --condition ≥ 1".into()));
     }
-    std::fs::create_dir_all(&a.out).map_err(|source| LacunaError::Write { path: a.out.clone(), source })?;
+    std::fs::create_dir_all(&a.out).map_err(|source| LacunaError::Write {
+        path: a.out.clone(),
+        source,
+    })?;
     match a.scenario {
         Scenario::Headset => {
-            let study = simulate(&HeadsetParams { samples: a.samples, seed: a.seed, ..HeadsetParams::default() });
+            let study = simulate(&HeadsetParams {
+                samples: a.samples,
+                seed: a.seed,
+                ..HeadsetParams::default()
+            });
             write_set(&a.out, &study.trials)?;
             let mut labels = String::from("label,session\n");
             for (l, s) in study.labels.iter().zip(&study.sessions) {
                 labels.push_str(&format!("{l},{s}\n"));
             }
             write_atomic(&a.out.join("labels.csv"), labels.as_bytes())?;
-            write_matrix(&a.out.join("truth-rest.npy"), &study.truth[0], study.trials.channels())?;
-            write_matrix(&a.out.join("truth-task.npy"), &study.truth[1], study.trials.channels())?;
+            write_matrix(
+                &a.out.join("truth-rest.npy"),
+                &study.truth[0],
+                study.trials.channels(),
+            )?;
+            write_matrix(
+                &a.out.join("truth-task.npy"),
+                &study.truth[1],
+                study.trials.channels(),
+            )?;
             let cells = study.trials.mask().iter().filter(|&&m| !m).count();
             let total = study.trials.len() * study.trials.n_channels();
             eprintln!(
@@ -98,11 +124,21 @@ pub fn run(a: SynthArgs) -> Result<i32> {
         Scenario::Uniform => {
             let mut rng = Rng::new(a.seed);
             let truth = random_spd(a.channels, a.condition, &mut rng);
-            let full: Vec<_> = (0..a.trials).map(|_| sample_covariance(&truth, a.samples, &mut rng)).collect();
-            let set = masked_set(&full, random_dropout(a.trials, a.channels, a.dropout, a.max_lost, &mut rng));
+            let full: Vec<_> = (0..a.trials)
+                .map(|_| sample_covariance(&truth, a.samples, &mut rng))
+                .collect();
+            let set = masked_set(
+                &full,
+                random_dropout(a.trials, a.channels, a.dropout, a.max_lost, &mut rng),
+            );
             write_set(&a.out, &set)?;
             write_matrix(&a.out.join("truth.npy"), &truth, set.channels())?;
-            eprintln!("wrote {} trials × {} channels to {}", a.trials, a.channels, a.out.display());
+            eprintln!(
+                "wrote {} trials × {} channels to {}",
+                a.trials,
+                a.channels,
+                a.out.display()
+            );
         }
     }
     Ok(0)

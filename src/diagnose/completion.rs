@@ -16,7 +16,7 @@
 use nalgebra::{DMatrix, DVector};
 
 use crate::spd::functions::inv_spd;
-use crate::spd::{log_det, symmetrize, Mat};
+use crate::spd::{Mat, log_det, symmetrize};
 
 /// Outcome of a completion.
 #[derive(Debug, Clone)]
@@ -33,11 +33,17 @@ pub struct Completion {
 pub fn max_det_completion(x: &Mat, free: &[[usize; 2]]) -> Completion {
     let mut x = symmetrize(x);
     if free.is_empty() {
-        return Completion { matrix: x, iterations: 0, residual: 0.0 };
+        return Completion {
+            matrix: x,
+            iterations: 0,
+            residual: 0.0,
+        };
     }
     let m = free.len();
     let residual = |x: &Mat, s: &Mat| {
-        free.iter().map(|&[a, b]| s[(a, b)].abs() * (x[(a, a)] * x[(b, b)]).sqrt()).fold(0.0, f64::max)
+        free.iter()
+            .map(|&[a, b]| s[(a, b)].abs() * (x[(a, a)] * x[(b, b)]).sqrt())
+            .fold(0.0, f64::max)
     };
     let mut iterations = 0;
     let mut s = inv_spd(&x);
@@ -63,13 +69,13 @@ pub fn max_det_completion(x: &Mat, free: &[[usize; 2]]) -> Completion {
                 trial[(a, b)] += t * delta[k];
                 trial[(b, a)] += t * delta[k];
             }
-            if let Some(l) = log_det(&trial) {
-                if l >= ld - 1e-14 * ld.abs() {
-                    x = trial;
-                    ld = l;
-                    improved = true;
-                    break;
-                }
+            if let Some(l) = log_det(&trial)
+                && l >= ld - 1e-14 * ld.abs()
+            {
+                x = trial;
+                ld = l;
+                improved = true;
+                break;
             }
             t *= 0.5;
         }
@@ -79,7 +85,11 @@ pub fn max_det_completion(x: &Mat, free: &[[usize; 2]]) -> Completion {
         }
     }
     let residual = residual(&x, &s);
-    Completion { matrix: x, iterations, residual }
+    Completion {
+        matrix: x,
+        iterations,
+        residual,
+    }
 }
 
 #[cfg(test)]
@@ -95,7 +105,11 @@ mod tests {
         let x = Mat::from_row_slice(3, 3, &[2.0, 0.6, -0.4, 0.6, 1.5, 0.3, -0.4, 0.3, 1.0]);
         let c = max_det_completion(&x, &[[0, 2]]);
         let expected = 0.6 * 0.3 / 1.5;
-        assert!((c.matrix[(0, 2)] - expected).abs() < 1e-12, "{}", c.matrix[(0, 2)]);
+        assert!(
+            (c.matrix[(0, 2)] - expected).abs() < 1e-12,
+            "{}",
+            c.matrix[(0, 2)]
+        );
         assert!((c.matrix[(0, 1)] - 0.6).abs() == 0.0);
         let s = inv_spd(&c.matrix);
         assert!(s[(0, 2)].abs() < 1e-12);

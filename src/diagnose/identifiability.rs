@@ -31,5 +31,9 @@ pub fn identifiability(set: &TrialSet) -> Identifiability {
             }
         }
     }
-    Identifiability { coobservation: counts, never_observed, unconstrained_pairs }
+    Identifiability {
+        coobservation: counts,
+        never_observed,
+        unconstrained_pairs,
+    }
 }

@@ -8,4 +8,4 @@ pub mod identifiability;
 pub use completion::max_det_completion;
 pub use identifiability::{Identifiability, identifiability};
 pub mod summary;
-pub use summary::{summarize, MeanSummary};
+pub use summary::{MeanSummary, summarize};

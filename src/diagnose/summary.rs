@@ -7,7 +7,7 @@
 //! trials' `log det` over complete trials, and, per observation pattern, the
 //! same comparison on the mean's matching sub-block.
 
-use crate::spd::{condition_number, log_det, Mat};
+use crate::spd::{Mat, condition_number, log_det};
 use crate::trials::TrialSet;
 
 /// Coverage of one channel.
@@ -58,7 +58,11 @@ pub fn summarize(set: &TrialSet, mean: &Mat) -> MeanSummary {
         .enumerate()
         .map(|(c, name)| {
             let on: Vec<usize> = (0..set.len()).filter(|&i| set.observed(i, c)).collect();
-            ChannelCoverage { channel: name.clone(), trials_observed: on.len(), weight_share: on.iter().map(|&i| w[i]).sum() }
+            ChannelCoverage {
+                channel: name.clone(),
+                trials_observed: on.len(),
+                weight_share: on.iter().map(|&i| w[i]).sum(),
+            }
         })
         .collect();
     let mut groups = set.pattern_groups();
@@ -71,8 +75,18 @@ pub fn summarize(set: &TrialSet, mean: &Mat) -> MeanSummary {
             let k = g.observed.len();
             let sub = Mat::from_fn(k, k, |a, b| mean[(g.observed[a], g.observed[b])]);
             let ws: f64 = g.trials.iter().map(|&i| w[i]).sum();
-            let mld = g.trials.iter().map(|&i| w[i] * log_det(&trials[i].block).unwrap_or(f64::NAN)).sum::<f64>() / ws;
-            PatternSwelling { observed: g.observed.clone(), trials: g.trials.len(), log_det_mean_block: log_det(&sub).unwrap_or(f64::NAN), mean_log_det_trials: mld }
+            let mld = g
+                .trials
+                .iter()
+                .map(|&i| w[i] * log_det(&trials[i].block).unwrap_or(f64::NAN))
+                .sum::<f64>()
+                / ws;
+            PatternSwelling {
+                observed: g.observed.clone(),
+                trials: g.trials.len(),
+                log_det_mean_block: log_det(&sub).unwrap_or(f64::NAN),
+                mean_log_det_trials: mld,
+            }
         })
         .collect();
     let complete: Vec<usize> = (0..set.len()).filter(|&i| set.is_complete(i)).collect();
@@ -80,7 +94,13 @@ pub fn summarize(set: &TrialSet, mean: &Mat) -> MeanSummary {
         None
     } else {
         let ws: f64 = complete.iter().map(|&i| w[i]).sum();
-        Some(complete.iter().map(|&i| w[i] * log_det(&trials[i].block).unwrap_or(f64::NAN)).sum::<f64>() / ws)
+        Some(
+            complete
+                .iter()
+                .map(|&i| w[i] * log_det(&trials[i].block).unwrap_or(f64::NAN))
+                .sum::<f64>()
+                / ws,
+        )
     };
     MeanSummary {
         coverage,

@@ -73,7 +73,10 @@ impl<'a> MeanReport<'a> {
             });
         }
         if d.starts_agree == Some(false) {
-            advice.push("starts disagree: compare the listed start costs; the lowest-cost mean is reported".into());
+            advice.push(
+                "starts disagree: compare the listed start costs; the lowest-cost mean is reported"
+                    .into(),
+            );
         }
         MeanReport {
             report_version: REPORT_VERSION,

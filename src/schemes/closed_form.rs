@@ -8,7 +8,7 @@
 //! For the same weights, harmonic ≤ Karcher ≤ arithmetic in the Löwner order
 //! (Ando, Li, Mathias 2004), which the tests check.
 
-use super::{weighted_sum, AveragingScheme, Diagnostics, MeanResult, SchemeOptions};
+use super::{AveragingScheme, Diagnostics, MeanResult, SchemeOptions, weighted_sum};
 use crate::error::Result;
 use crate::spd::functions::inv_spd;
 use crate::spd::{expm_sym, logm_spd, symmetrize};
@@ -33,8 +33,14 @@ impl AveragingScheme for Arithmetic {
     }
     fn average(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
         let blocks = trials.complete_blocks(self.name())?;
-        let mean = symmetrize(&weighted_sum(&blocks, &trials.normalized_weights(), |c| c.clone()));
-        Ok(MeanResult { scheme: self.name().into(), mean, diagnostics: Diagnostics::closed_form(vec![]) })
+        let mean = symmetrize(&weighted_sum(&blocks, &trials.normalized_weights(), |c| {
+            c.clone()
+        }));
+        Ok(MeanResult {
+            scheme: self.name().into(),
+            mean,
+            diagnostics: Diagnostics::closed_form(vec![]),
+        })
     }
 }
 
@@ -51,7 +57,11 @@ impl AveragingScheme for Harmonic {
     fn average(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
         let blocks = trials.complete_blocks(self.name())?;
         let s = weighted_sum(&blocks, &trials.normalized_weights(), inv_spd);
-        Ok(MeanResult { scheme: self.name().into(), mean: inv_spd(&symmetrize(&s)), diagnostics: Diagnostics::closed_form(vec![]) })
+        Ok(MeanResult {
+            scheme: self.name().into(),
+            mean: inv_spd(&symmetrize(&s)),
+            diagnostics: Diagnostics::closed_form(vec![]),
+        })
     }
 }
 
@@ -68,6 +78,10 @@ impl AveragingScheme for LogEuclidean {
     fn average(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
         let blocks = trials.complete_blocks(self.name())?;
         let s = weighted_sum(&blocks, &trials.normalized_weights(), logm_spd);
-        Ok(MeanResult { scheme: self.name().into(), mean: expm_sym(&symmetrize(&s)), diagnostics: Diagnostics::closed_form(vec![]) })
+        Ok(MeanResult {
+            scheme: self.name().into(),
+            mean: expm_sym(&symmetrize(&s)),
+            diagnostics: Diagnostics::closed_form(vec![]),
+        })
     }
 }

@@ -24,6 +24,9 @@ use crate::solve::{IterRecord, Solution, StopReason, StopRule};
 use crate::spd::Mat;
 use crate::trials::TrialSet;
 
+/// Progress callback, called after every accepted iteration.
+pub type Observer = Arc<dyn Fn(&IterRecord) + Send + Sync>;
+
 /// Options shared by all schemes (each uses what applies to it).
 #[derive(Clone)]
 pub struct SchemeOptions {
@@ -36,12 +39,18 @@ pub struct SchemeOptions {
     /// Seed for anything random (extra starts).
     pub seed: u64,
     /// Called after every accepted iteration (progress display).
-    pub observer: Option<Arc<dyn Fn(&IterRecord) + Send + Sync>>,
+    pub observer: Option<Observer>,
 }
 
 impl Default for SchemeOptions {
     fn default() -> Self {
-        SchemeOptions { stop: StopRule::default(), init: InitRule::AvailableCase, starts: 1, seed: 0, observer: None }
+        SchemeOptions {
+            stop: StopRule::default(),
+            init: InitRule::AvailableCase,
+            starts: 1,
+            seed: 0,
+            observer: None,
+        }
     }
 }
 
@@ -168,7 +177,13 @@ pub trait AveragingScheme: Sync + Send {
 
 /// Every scheme lacuna knows, in the order they are listed to users.
 pub fn all_schemes() -> Vec<Box<dyn AveragingScheme>> {
-    vec![Box::new(AirmObserved), Box::new(Karcher), Box::new(LogEuclidean), Box::new(Arithmetic), Box::new(Harmonic)]
+    vec![
+        Box::new(AirmObserved),
+        Box::new(Karcher),
+        Box::new(LogEuclidean),
+        Box::new(Arithmetic),
+        Box::new(Harmonic),
+    ]
 }
 
 /// Looks a scheme up by name.
@@ -177,7 +192,11 @@ pub fn scheme_by_name(name: &str) -> Option<Box<dyn AveragingScheme>> {
 }
 
 /// Weighted sum `Σ ŵ_i f(C_i)` over complete trials, reduced in a fixed order.
-pub(crate) fn weighted_sum(blocks: &[&Mat], weights: &[f64], f: impl Fn(&Mat) -> Mat + Sync + Send) -> Mat {
+pub(crate) fn weighted_sum(
+    blocks: &[&Mat],
+    weights: &[f64],
+    f: impl Fn(&Mat) -> Mat + Sync + Send,
+) -> Mat {
     let p = blocks[0].nrows();
     let parts = crate::solve::chunked(blocks.len(), 32, |r| {
         let mut acc = Mat::zeros(p, p);

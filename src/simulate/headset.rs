@@ -12,12 +12,13 @@
 
 use super::rng::Rng;
 use super::stacks::{gaussian, sample_covariance};
-use crate::spd::{symmetrize, Mat};
+use crate::spd::{Mat, symmetrize};
 use crate::trials::{Trial, TrialSet};
 
 /// Electrode names of the demo headset.
 pub const CHANNELS: [&str; 24] = [
-    "Fp1", "Fp2", "F7", "F3", "Fz", "F4", "F8", "FC5", "FC1", "FC2", "FC6", "T7", "C3", "Cz", "C4", "T8", "CP5", "CP1", "CP2", "CP6", "P3", "Pz", "P4", "Oz",
+    "Fp1", "Fp2", "F7", "F3", "Fz", "F4", "F8", "FC5", "FC1", "FC2", "FC6", "T7", "C3", "Cz", "C4",
+    "T8", "CP5", "CP1", "CP2", "CP6", "P3", "Pz", "P4", "Oz",
 ];
 
 /// Ground truth and data of one simulated study.
@@ -51,7 +52,13 @@ pub struct HeadsetParams {
 
 impl Default for HeadsetParams {
     fn default() -> Self {
-        HeadsetParams { sessions: 3, trials_per_session: 80, samples: 250, run_start: 0.012, seed: 2026 }
+        HeadsetParams {
+            sessions: 3,
+            trials_per_session: 80,
+            samples: 250,
+            run_start: 0.012,
+            seed: 2026,
+        }
     }
 }
 
@@ -86,7 +93,11 @@ pub fn simulate(params: &HeadsetParams) -> HeadsetStudy {
             let task = t % 2 == 1;
             labels.push(if task { "task" } else { "rest" }.to_string());
             sessions.push(format!("session-{}", s + 1));
-            full.push(sample_covariance(&truth[task as usize], params.samples, &mut rng));
+            full.push(sample_covariance(
+                &truth[task as usize],
+                params.samples,
+                &mut rng,
+            ));
             for c in 0..p {
                 if run_left[c] == 0 && rng.uniform() < params.run_start {
                     run_left[c] = 3 + rng.below(13);
@@ -107,12 +118,22 @@ pub fn simulate(params: &HeadsetParams) -> HeadsetStudy {
         .map(|(m, l)| {
             let o: Vec<usize> = (0..p).filter(|&c| !l[c]).collect();
             let k = o.len();
-            Trial { block: Mat::from_fn(k, k, |a, b| m[(o[a], o[b])]), observed: o }
+            Trial {
+                block: Mat::from_fn(k, k, |a, b| m[(o[a], o[b])]),
+                observed: o,
+            }
         })
         .collect();
     let channels = CHANNELS.iter().map(|s| s.to_string()).collect();
-    let mut set = TrialSet::new(channels, trials, None, "simulated headset").expect("simulated trials are valid");
+    let mut set = TrialSet::new(channels, trials, None, "simulated headset")
+        .expect("simulated trials are valid");
     set.labels = Some(labels.clone());
     set.sessions = Some(sessions.clone());
-    HeadsetStudy { trials: set, labels, sessions, truth, full }
+    HeadsetStudy {
+        trials: set,
+        labels,
+        sessions,
+        truth,
+        full,
+    }
 }

@@ -1,6 +1,6 @@
 //! Generators for tests, benchmarks and the demo data. Everything is
 //! deterministic from a seed.
 
-pub mod rng;
 pub mod headset;
+pub mod rng;
 pub mod stacks;

@@ -2,7 +2,7 @@
 
 use super::rng::Rng;
 use crate::spd::kernels::cholesky;
-use crate::spd::{symmetrize, Mat};
+use crate::spd::{Mat, symmetrize};
 use crate::trials::{Trial, TrialSet};
 
 /// A `p×p` matrix of independent standard normals.
@@ -31,7 +31,11 @@ pub fn random_spd(p: usize, cond: f64, rng: &mut Rng) -> Mat {
     let scale = (0.5 * rng.normal()).exp();
     let d: Vec<f64> = (0..p)
         .map(|k| {
-            let t = if p == 1 { 0.5 } else { k as f64 / (p - 1) as f64 };
+            let t = if p == 1 {
+                0.5
+            } else {
+                k as f64 / (p - 1) as f64
+            };
             scale * cond.powf(t - 0.5)
         })
         .collect();
@@ -47,7 +51,13 @@ pub fn sample_covariance(sigma: &Mat, t: usize, rng: &mut Rng) -> Mat {
 
 /// Observed channel lists: a fraction `frac` of trials loses between 1 and
 /// `max_lost` channels chosen uniformly; the rest are complete.
-pub fn random_dropout(n: usize, p: usize, frac: f64, max_lost: usize, rng: &mut Rng) -> Vec<Vec<usize>> {
+pub fn random_dropout(
+    n: usize,
+    p: usize,
+    frac: f64,
+    max_lost: usize,
+    rng: &mut Rng,
+) -> Vec<Vec<usize>> {
     (0..n)
         .map(|_| {
             let mut obs: Vec<usize> = (0..p).collect();
@@ -75,5 +85,11 @@ pub fn masked_set(full: &[Mat], observed: Vec<Vec<usize>>) -> TrialSet {
             Trial { observed: o, block }
         })
         .collect();
-    TrialSet::new(crate::trials::default_channel_names(p), trials, None, "simulated").expect("simulated trials are valid")
+    TrialSet::new(
+        crate::trials::default_channel_names(p),
+        trials,
+        None,
+        "simulated",
+    )
+    .expect("simulated trials are valid")
 }

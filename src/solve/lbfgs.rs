@@ -20,7 +20,7 @@
 
 use std::collections::VecDeque;
 
-use super::{frob, Evaluation, IterRecord, Solution, SpdProblem, StopReason, StopRule};
+use super::{Evaluation, IterRecord, Solution, SpdProblem, StopReason, StopRule, frob};
 use crate::spd::kernels::sym_eigen;
 use crate::spd::{Mat, symmetrize};
 
@@ -37,7 +37,12 @@ pub type Observer<'a> = &'a (dyn Fn(&IterRecord) + Sync);
 
 /// Minimises `problem` from `x0` (SPD). Returns `None` only when `x0` itself
 /// is not a valid point of the problem.
-pub fn minimize(problem: &dyn SpdProblem, x0: &Mat, rule: &StopRule, observer: Option<Observer<'_>>) -> Option<Solution> {
+pub fn minimize(
+    problem: &dyn SpdProblem,
+    x0: &Mat,
+    rule: &StopRule,
+    observer: Option<Observer<'_>>,
+) -> Option<Solution> {
     // Start from the symmetric square root: W = X^{1/2}.
     let e0 = sym_eigen(&symmetrize(x0));
     if e0.values.first().is_none_or(|&v| v <= 0.0) {
@@ -52,7 +57,13 @@ pub fn minimize(problem: &dyn SpdProblem, x0: &Mat, rule: &StopRule, observer: O
     let mut iteration = 0;
     let reason = loop {
         let gnorm = frob(&eval.grad, &eval.grad).sqrt();
-        let rec = IterRecord { iteration, cost: eval.cost, gradient_norm: gnorm, step, evaluations };
+        let rec = IterRecord {
+            iteration,
+            cost: eval.cost,
+            gradient_norm: gnorm,
+            step,
+            evaluations,
+        };
         if let Some(obs) = observer {
             obs(&rec);
         }
@@ -83,7 +94,8 @@ pub fn minimize(problem: &dyn SpdProblem, x0: &Mat, rule: &StopRule, observer: O
                 // Slope at t: the transported direction is `d` itself.
                 let slope_t = frob(&e.grad, &direction);
                 let armijo = e.cost <= eval.cost + ARMIJO_C1 * t * slope + allowance;
-                let near_flat = e.cost <= eval.cost + ROUNDING_BAND * eval.cost.abs() && slope_t.abs() <= CURVATURE_C2 * slope.abs();
+                let near_flat = e.cost <= eval.cost + ROUNDING_BAND * eval.cost.abs()
+                    && slope_t.abs() <= CURVATURE_C2 * slope.abs();
                 if armijo || near_flat {
                     accepted = Some((w_new, e));
                     break;

@@ -51,7 +51,10 @@ pub struct StopRule {
 
 impl Default for StopRule {
     fn default() -> Self {
-        StopRule { tol: 1e-10, max_iter: 500 }
+        StopRule {
+            tol: 1e-10,
+            max_iter: 500,
+        }
     }
 }
 
@@ -111,7 +114,11 @@ impl Solution {
 
 /// Sum over `n` items in fixed-size chunks, run in parallel, combined in a
 /// fixed order: the result is bit-identical whatever the thread count.
-pub fn chunked<T: Send>(n: usize, chunk: usize, f: impl Fn(std::ops::Range<usize>) -> T + Sync + Send) -> Vec<T> {
+pub fn chunked<T: Send>(
+    n: usize,
+    chunk: usize,
+    f: impl Fn(std::ops::Range<usize>) -> T + Sync + Send,
+) -> Vec<T> {
     use rayon::prelude::*;
     let chunks = n.div_ceil(chunk.max(1));
     (0..chunks)

@@ -5,9 +5,9 @@
 //! (Pennec, Fillard, Ayache 2006; Bhatia 2007, ch. 6). Log-Euclidean:
 //! `‖log A − log B‖_F` (Arsigny, Fillard, Pennec, Ayache 2007).
 
+use super::Mat;
 use super::functions::logm_spd;
 use super::kernels::{cholesky, sym_eigenvalues, whiten};
-use super::Mat;
 
 /// Affine-invariant Riemannian distance. Returns NaN if `A` is not positive
 /// definite (callers validate their inputs first).

@@ -7,8 +7,8 @@
 //! starts from the rounded entries of `A` has (Higham 2008, *Functions of
 //! Matrices*, §6 and §11 discuss the conditioning of sqrt and log).
 
-use super::kernels::sym_eigen;
 use super::Mat;
+use super::kernels::sym_eigen;
 
 /// Principal square root of an SPD matrix.
 pub fn sqrtm_spd(a: &Mat) -> Mat {

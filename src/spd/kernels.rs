@@ -39,7 +39,11 @@ pub fn cholesky(a: &Mat) -> Option<Mat> {
             out[(i, j)] = l[(i, j)];
         }
     }
-    if out.iter().all(|v| v.is_finite()) { Some(out) } else { None }
+    if out.iter().all(|v| v.is_finite()) {
+        Some(out)
+    } else {
+        None
+    }
 }
 
 /// Solves `L Y = B` in place for lower-triangular `L` (`B` becomes `L⁻¹ B`).
@@ -119,7 +123,14 @@ pub fn add_rebuild(acc: &mut Mat, u: &Mat, d: &[f64]) {
     }
     let n = acc.nrows();
     let dst = faer::MatMut::from_column_major_slice_mut(acc.as_mut_slice(), n, n);
-    faer::linalg::matmul::matmul(dst, Accum::Add, view(&scaled), view(u).transpose(), 1.0, Par::Seq);
+    faer::linalg::matmul::matmul(
+        dst,
+        Accum::Add,
+        view(&scaled),
+        view(u).transpose(),
+        1.0,
+        Par::Seq,
+    );
 }
 
 /// `acc += alpha · Qᵀ B Q` for `Q` of size `k×p` and symmetric `B` (`k×k`).
@@ -129,7 +140,14 @@ pub fn add_congruence_t(acc: &mut Mat, q: &Mat, b: &Mat, alpha: f64) {
     let bq_view = faer::MatMut::from_column_major_slice_mut(bq.as_mut_slice(), k, p);
     faer::linalg::matmul::matmul(bq_view, Accum::Replace, view(b), view(q), 1.0, Par::Seq);
     let dst = faer::MatMut::from_column_major_slice_mut(acc.as_mut_slice(), p, p);
-    faer::linalg::matmul::matmul(dst, Accum::Add, view(q).transpose(), view(&bq), alpha, Par::Seq);
+    faer::linalg::matmul::matmul(
+        dst,
+        Accum::Add,
+        view(q).transpose(),
+        view(&bq),
+        alpha,
+        Par::Seq,
+    );
 }
 
 /// Symmetric eigendecomposition (values nondecreasing).
@@ -139,15 +157,15 @@ pub fn add_congruence_t(acc: &mut Mat, q: &Mat, b: &Mat, alpha: f64) {
 /// treat as a numerical failure.
 pub fn sym_eigen(a: &Mat) -> SymEigen {
     let n = a.nrows();
-    if n >= EIGEN_FAER_FROM {
-        if let Ok(evd) = view(a).self_adjoint_eigen(Side::Lower) {
-            let s = evd.S();
-            let values: Vec<f64> = (0..n).map(|i| s.column_vector()[i]).collect();
-            return SymEigen {
-                values,
-                vectors: to_mat(evd.U()),
-            };
-        }
+    if n >= EIGEN_FAER_FROM
+        && let Ok(evd) = view(a).self_adjoint_eigen(Side::Lower)
+    {
+        let s = evd.S();
+        let values: Vec<f64> = (0..n).map(|i| s.column_vector()[i]).collect();
+        return SymEigen {
+            values,
+            vectors: to_mat(evd.U()),
+        };
     }
     let e = nalgebra::SymmetricEigen::new(a.clone());
     let mut order: Vec<usize> = (0..n).collect();
@@ -160,12 +178,16 @@ pub fn sym_eigen(a: &Mat) -> SymEigen {
 /// Eigenvalues only (nondecreasing); cheaper than [`sym_eigen`].
 pub fn sym_eigenvalues(a: &Mat) -> Vec<f64> {
     let n = a.nrows();
-    if n >= EIGEN_FAER_FROM {
-        if let Ok(v) = view(a).self_adjoint_eigenvalues(Side::Lower) {
-            return v;
-        }
+    if n >= EIGEN_FAER_FROM
+        && let Ok(v) = view(a).self_adjoint_eigenvalues(Side::Lower)
+    {
+        return v;
     }
-    let mut v: Vec<f64> = nalgebra::SymmetricEigen::new(a.clone()).eigenvalues.iter().copied().collect();
+    let mut v: Vec<f64> = nalgebra::SymmetricEigen::new(a.clone())
+        .eigenvalues
+        .iter()
+        .copied()
+        .collect();
     v.sort_by(f64::total_cmp);
     v
 }

@@ -19,9 +19,9 @@ pub mod kernels;
 pub mod validate;
 
 pub use distance::{airm_distance, log_euclidean_distance};
-pub use functions::{expm_sym, logm_spd, powm_spd, sqrtm_spd, invsqrtm_spd};
+pub use functions::{expm_sym, invsqrtm_spd, logm_spd, powm_spd, sqrtm_spd};
 pub use geodesic::{exp_map, geodesic, log_map, two_point_mean};
-pub use kernels::{cholesky, sym_eigen, whiten, SymEigen};
+pub use kernels::{SymEigen, cholesky, sym_eigen, whiten};
 
 /// The dense matrix type used throughout lacuna (column-major, `f64`).
 pub type Mat = nalgebra::DMatrix<f64>;

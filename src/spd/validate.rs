@@ -82,12 +82,21 @@ mod tests {
         assert_eq!(check_spd(&good), Ok(()));
         let mut nan = good.clone();
         nan[(2, 1)] = f64::NAN;
-        assert_eq!(check_spd(&nan), Err(SpdDefect::NonFinite { row: 2, col: 1 }));
+        assert_eq!(
+            check_spd(&nan),
+            Err(SpdDefect::NonFinite { row: 2, col: 1 })
+        );
         let mut asym = good.clone();
         asym[(0, 2)] = 0.3;
-        assert!(matches!(check_spd(&asym), Err(SpdDefect::NotSymmetric { .. })));
+        assert!(matches!(
+            check_spd(&asym),
+            Err(SpdDefect::NotSymmetric { .. })
+        ));
         // Channel 2 duplicates channel 1: Cholesky breaks at pivot 1.
         let sing = Mat::from_row_slice(3, 3, &[1.0, 1.0, 0.0, 1.0, 1.0, 0.0, 0.0, 0.0, 1.0]);
-        assert!(matches!(check_spd(&sing), Err(SpdDefect::NotPositiveDefinite { row: 1, .. })));
+        assert!(matches!(
+            check_spd(&sing),
+            Err(SpdDefect::NotPositiveDefinite { row: 1, .. })
+        ));
     }
 }

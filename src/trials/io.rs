@@ -12,16 +12,20 @@
 use std::path::Path;
 
 use super::npy::{self, NpyData};
-use super::{default_channel_names, Trial, TrialSet};
+use super::{Trial, TrialSet, default_channel_names};
 use crate::error::{LacunaError, Result, TrialProblem};
 use crate::spd::Mat;
 
 fn format_err(path: &Path, message: impl Into<String>) -> LacunaError {
-    LacunaError::Format { path: path.to_path_buf(), message: message.into() }
+    LacunaError::Format {
+        path: path.to_path_buf(),
+        message: message.into(),
+    }
 }
 
 fn is_csv(path: &Path) -> bool {
-    path.extension().is_some_and(|e| e.eq_ignore_ascii_case("csv"))
+    path.extension()
+        .is_some_and(|e| e.eq_ignore_ascii_case("csv"))
 }
 
 /// A covariance stack as read from disk: C-order data and its shape.
@@ -39,15 +43,31 @@ pub fn read_stack(path: &Path) -> Result<Stack> {
     let arr = npy::read_npy(path)?;
     let data = match arr.data {
         NpyData::Float(v) => v,
-        NpyData::Byte(_) => return Err(format_err(path, format!("covariance stack must be float64, found dtype {}", arr.descr))),
+        NpyData::Byte(_) => {
+            return Err(format_err(
+                path,
+                format!(
+                    "covariance stack must be float64, found dtype {}",
+                    arr.descr
+                ),
+            ));
+        }
     };
     let (n, p, q) = match arr.shape.as_slice() {
         [n, p, q] => (*n, *p, *q),
         [p, q] => (1, *p, *q),
-        s => return Err(format_err(path, format!("covariance stack must have shape (N, p, p), found {s:?}"))),
+        s => {
+            return Err(format_err(
+                path,
+                format!("covariance stack must have shape (N, p, p), found {s:?}"),
+            ));
+        }
     };
     if p != q {
-        return Err(format_err(path, format!("matrices must be square, found {p}×{q}")));
+        return Err(format_err(
+            path,
+            format!("matrices must be square, found {p}×{q}"),
+        ));
     }
     if n == 0 || p == 0 {
         return Err(format_err(path, "covariance stack is empty"));
@@ -71,48 +91,107 @@ pub fn read_mask(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
     let arr = npy::read_npy(path)?;
     let bytes = match arr.data {
         NpyData::Byte(v) => v,
-        NpyData::Float(_) => return Err(format_err(path, format!("mask must be uint8 or bool, found dtype {}", arr.descr))),
+        NpyData::Float(_) => {
+            return Err(format_err(
+                path,
+                format!("mask must be uint8 or bool, found dtype {}", arr.descr),
+            ));
+        }
     };
     if arr.shape != [n, p] {
-        return Err(format_err(path, format!("mask shape {:?} does not match the stack: expected [{n}, {p}]", arr.shape)));
+        return Err(format_err(
+            path,
+            format!(
+                "mask shape {:?} does not match the stack: expected [{n}, {p}]",
+                arr.shape
+            ),
+        ));
     }
     let mut observed = Vec::with_capacity(bytes.len());
     for (k, &b) in bytes.iter().enumerate() {
         match b {
             0 => observed.push(false),
             1 => observed.push(true),
-            v => return Err(format_err(path, format!("trial {}, channel {}: mask value {v} is not 0 or 1", k / p, k % p))),
+            v => {
+                return Err(format_err(
+                    path,
+                    format!(
+                        "trial {}, channel {}: mask value {v} is not 0 or 1",
+                        k / p,
+                        k % p
+                    ),
+                ));
+            }
         }
     }
-    Ok(MaskFile { observed, channels: None })
+    Ok(MaskFile {
+        observed,
+        channels: None,
+    })
 }
 
 fn read_mask_csv(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
-    let mut rdr = csv::ReaderBuilder::new().has_headers(true).from_path(path).map_err(|e| format_err(path, e.to_string()))?;
-    let header: Vec<String> = rdr.headers().map_err(|e| format_err(path, e.to_string()))?.iter().map(|s| s.trim().to_string()).collect();
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .from_path(path)
+        .map_err(|e| format_err(path, e.to_string()))?;
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| format_err(path, e.to_string()))?
+        .iter()
+        .map(|s| s.trim().to_string())
+        .collect();
     if header.len() != p {
-        return Err(format_err(path, format!("mask header names {} channels, the stack has {p}", header.len())));
+        return Err(format_err(
+            path,
+            format!(
+                "mask header names {} channels, the stack has {p}",
+                header.len()
+            ),
+        ));
     }
     let mut observed = Vec::with_capacity(n * p);
     let mut rows = 0;
     for (r, rec) in rdr.records().enumerate() {
         let rec = rec.map_err(|e| format_err(path, format!("row {}: {e}", r + 2)))?;
         if rec.len() != p {
-            return Err(format_err(path, format!("trial {r} (line {}): {} cells, expected {p}", r + 2, rec.len())));
+            return Err(format_err(
+                path,
+                format!(
+                    "trial {r} (line {}): {} cells, expected {p}",
+                    r + 2,
+                    rec.len()
+                ),
+            ));
         }
         for (c, cell) in rec.iter().enumerate() {
             match cell.trim() {
                 "1" | "true" | "True" => observed.push(true),
                 "0" | "false" | "False" => observed.push(false),
-                other => return Err(format_err(path, format!("trial {r} (line {}), channel {}: '{other}' is not 0 or 1", r + 2, header[c]))),
+                other => {
+                    return Err(format_err(
+                        path,
+                        format!(
+                            "trial {r} (line {}), channel {}: '{other}' is not 0 or 1",
+                            r + 2,
+                            header[c]
+                        ),
+                    ));
+                }
             }
         }
         rows += 1;
     }
     if rows != n {
-        return Err(format_err(path, format!("mask has {rows} trial rows, the stack has {n} trials")));
+        return Err(format_err(
+            path,
+            format!("mask has {rows} trial rows, the stack has {n} trials"),
+        ));
     }
-    Ok(MaskFile { observed, channels: Some(header) })
+    Ok(MaskFile {
+        observed,
+        channels: Some(header),
+    })
 }
 
 /// Infers the mask from NaN diagonal entries: a channel whose variance is NaN
@@ -131,7 +210,10 @@ pub fn infer_mask(stack: &Stack) -> Vec<bool> {
 /// Reads trial weights: NPY float64 `(N,)` or a one-column CSV (header optional).
 pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
     let w = if is_csv(path) {
-        let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read { path: path.to_path_buf(), source })?;
+        let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
+            path: path.to_path_buf(),
+            source,
+        })?;
         let mut out = Vec::new();
         for (line_no, line) in text.lines().enumerate() {
             let cell = line.trim();
@@ -141,7 +223,12 @@ pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
             match cell.parse::<f64>() {
                 Ok(v) => out.push(v),
                 Err(_) if line_no == 0 => {} // header
-                Err(_) => return Err(format_err(path, format!("line {}: '{cell}' is not a number", line_no + 1))),
+                Err(_) => {
+                    return Err(format_err(
+                        path,
+                        format!("line {}: '{cell}' is not a number", line_no + 1),
+                    ));
+                }
             }
         }
         out
@@ -149,40 +236,164 @@ pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
         let arr = npy::read_npy(path)?;
         match (arr.data, arr.shape.as_slice()) {
             (NpyData::Float(v), [_]) => v,
-            _ => return Err(format_err(path, format!("weights must be float64 with shape (N,), found {} {:?}", arr.descr, arr.shape))),
+            _ => {
+                return Err(format_err(
+                    path,
+                    format!(
+                        "weights must be float64 with shape (N,), found {} {:?}",
+                        arr.descr, arr.shape
+                    ),
+                ));
+            }
         }
     };
     if w.len() != n {
-        return Err(format_err(path, format!("{} weights for {n} trials", w.len())));
+        return Err(format_err(
+            path,
+            format!("{} weights for {n} trials", w.len()),
+        ));
     }
     Ok(w)
 }
 
-/// Loads a trial set from a stack, an optional mask and optional weights.
-pub fn load_trial_set(covs: &Path, mask: Option<&Path>, weights: Option<&Path>) -> Result<TrialSet> {
-    let stack = read_stack(covs)?;
-    let (observed, channels) = match mask {
-        Some(m) => {
-            let f = read_mask(m, stack.n, stack.p)?;
-            (f.observed, f.channels)
-        }
-        None => (infer_mask(&stack), None),
+/// Reads the `(N, p)` shape of a stack from its header alone.
+fn stack_shape(path: &Path) -> Result<(usize, usize, npy::NpyHeader)> {
+    use std::io::Read;
+    let read_err = |source| LacunaError::Read {
+        path: path.to_path_buf(),
+        source,
     };
-    let p = stack.p;
-    let channels = channels.unwrap_or_else(|| default_channel_names(p));
-    let trials: Vec<Trial> = (0..stack.n)
-        .map(|i| {
-            let obs: Vec<usize> = (0..p).filter(|&c| observed[i * p + c]).collect();
-            Trial::from_stack_row(&stack.data, p, i, obs)
-        })
-        .collect();
-    drop(stack);
+    let mut f = std::fs::File::open(path).map_err(read_err)?;
+    let mut first = Vec::new();
+    (&mut f)
+        .take(12)
+        .read_to_end(&mut first)
+        .map_err(read_err)?;
+    let extent = npy::header_extent(&first, path)?;
+    let mut rest = Vec::new();
+    (&mut f)
+        .take((extent.saturating_sub(first.len())) as u64)
+        .read_to_end(&mut rest)
+        .map_err(read_err)?;
+    first.extend_from_slice(&rest);
+    let h = npy::parse_header(&first, path)?;
+    let (n, p, q) = match h.shape.as_slice() {
+        [n, p, q] => (*n, *p, *q),
+        [p, q] => (1, *p, *q),
+        s => {
+            return Err(format_err(
+                path,
+                format!("covariance stack must have shape (N, p, p), found {s:?}"),
+            ));
+        }
+    };
+    if p != q {
+        return Err(format_err(
+            path,
+            format!("matrices must be square, found {p}×{q}"),
+        ));
+    }
+    if n == 0 || p == 0 {
+        return Err(format_err(path, "covariance stack is empty"));
+    }
+    if h.kind != 'f' {
+        return Err(format_err(
+            path,
+            format!("covariance stack must be float64, found dtype {}", h.descr),
+        ));
+    }
+    let len = f.metadata().map_err(read_err)?.len() as usize;
+    let need = h.data_start + h.count * h.width;
+    if len < need {
+        return Err(format_err(
+            path,
+            format!(
+                "truncated NPY data: shape {:?} needs {} bytes, the file holds {}",
+                h.shape,
+                h.count * h.width,
+                len.saturating_sub(h.data_start)
+            ),
+        ));
+    }
+    Ok((n, p, h))
+}
+
+/// Reads trials one at a time from a C-order float64 stack, keeping only the
+/// observed blocks: peak memory stays near the size of the blocks, not twice
+/// the file. `observed_of(i, diagonal)` gives trial `i`'s observed channels.
+fn stream_trials(
+    path: &Path,
+    n: usize,
+    p: usize,
+    data_start: usize,
+    mut observed_of: impl FnMut(usize, &[f64]) -> Vec<usize>,
+) -> Result<Vec<Trial>> {
+    use std::io::{BufReader, Read, Seek, SeekFrom};
+    let read_err = |source| LacunaError::Read {
+        path: path.to_path_buf(),
+        source,
+    };
+    let f = std::fs::File::open(path).map_err(read_err)?;
+    let mut r = BufReader::with_capacity(1 << 20, f);
+    r.seek(SeekFrom::Start(data_start as u64))
+        .map_err(read_err)?;
+    let mut raw = vec![0u8; p * p * 8];
+    let mut vals = vec![0f64; p * p];
+    let mut trials = Vec::with_capacity(n);
+    for i in 0..n {
+        r.read_exact(&mut raw).map_err(read_err)?;
+        for (v, c) in vals.iter_mut().zip(raw.chunks_exact(8)) {
+            *v = f64::from_le_bytes(c.try_into().expect("chunk of 8"));
+        }
+        let diag: Vec<f64> = (0..p).map(|c| vals[c * p + c]).collect();
+        let obs = observed_of(i, &diag);
+        trials.push(Trial::from_stack_row(&vals, p, 0, obs));
+    }
+    Ok(trials)
+}
+
+/// Loads a trial set from a stack, an optional mask and optional weights.
+/// Little-endian C-order float64 stacks (the contract) are streamed trial by
+/// trial; other layouts are read whole.
+pub fn load_trial_set(
+    covs: &Path,
+    mask: Option<&Path>,
+    weights: Option<&Path>,
+) -> Result<TrialSet> {
+    let (n, p, header) = stack_shape(covs)?;
+    let mask_file = match mask {
+        Some(m) => Some(read_mask(m, n, p)?),
+        None => None,
+    };
+    let pick = |i: usize, diag: &[f64]| -> Vec<usize> {
+        match &mask_file {
+            Some(mf) => (0..p).filter(|&c| mf.observed[i * p + c]).collect(),
+            None => (0..p).filter(|&c| !diag[c].is_nan()).collect(),
+        }
+    };
+    let trials = if header.descr == "<f8" && !header.fortran {
+        stream_trials(covs, n, p, header.data_start, pick)?
+    } else {
+        let stack = read_stack(covs)?;
+        (0..n)
+            .map(|i| {
+                let diag: Vec<f64> = (0..p).map(|c| stack.data[i * p * p + c * p + c]).collect();
+                Trial::from_stack_row(&stack.data, p, i, pick(i, &diag))
+            })
+            .collect()
+    };
+    let channels = mask_file
+        .and_then(|m| m.channels)
+        .unwrap_or_else(|| default_channel_names(p));
     let w = match weights {
         Some(path) => Some(read_weights(path, trials.len())?),
         None => None,
     };
     TrialSet::new(channels, trials, w, &covs.display().to_string()).map_err(|e| match e {
-        LacunaError::InvalidTrials { source_name, problems } if mask.is_none() => LacunaError::InvalidTrials {
+        LacunaError::InvalidTrials {
+            source_name,
+            problems,
+        } if mask.is_none() => LacunaError::InvalidTrials {
             source_name,
             problems: with_mask_hint(problems),
         },
@@ -228,12 +439,20 @@ pub fn write_matrix(path: &Path, m: &Mat, channels: &[String]) -> Result<()> {
 pub fn read_matrix(path: &Path) -> Result<Mat> {
     if is_csv(path) {
         let mut rdr = csv::Reader::from_path(path).map_err(|e| format_err(path, e.to_string()))?;
-        let p = rdr.headers().map_err(|e| format_err(path, e.to_string()))?.len();
+        let p = rdr
+            .headers()
+            .map_err(|e| format_err(path, e.to_string()))?
+            .len();
         let mut vals = Vec::new();
         for (r, rec) in rdr.records().enumerate() {
             let rec = rec.map_err(|e| format_err(path, e.to_string()))?;
             for (c, cell) in rec.iter().enumerate() {
-                vals.push(cell.trim().parse::<f64>().map_err(|_| format_err(path, format!("row {}, column {}: '{cell}' is not a number", r + 2, c + 1)))?);
+                vals.push(cell.trim().parse::<f64>().map_err(|_| {
+                    format_err(
+                        path,
+                        format!("row {}, column {}: '{cell}' is not a number", r + 2, c + 1),
+                    )
+                })?);
             }
         }
         if vals.len() != p * p {

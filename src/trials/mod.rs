@@ -14,7 +14,7 @@ pub mod npy;
 
 use crate::error::{LacunaError, Result, TrialProblem};
 use crate::spd::Mat;
-use crate::spd::validate::{check_spd, SpdDefect};
+use crate::spd::validate::{SpdDefect, check_spd};
 
 /// One trial (or time window): the channels it observed and their covariance.
 #[derive(Debug, Clone, PartialEq)]
@@ -60,20 +60,37 @@ impl TrialSet {
     /// Validates and builds a trial set. `source_name` names the input in
     /// error messages (usually the file path). Every problem is reported,
     /// not just the first.
-    pub fn new(channels: Vec<String>, mut trials: Vec<Trial>, weights: Option<Vec<f64>>, source_name: &str) -> Result<Self> {
+    pub fn new(
+        channels: Vec<String>,
+        mut trials: Vec<Trial>,
+        weights: Option<Vec<f64>>,
+        source_name: &str,
+    ) -> Result<Self> {
         let p = channels.len();
         let mut problems = Vec::new();
         let name = |c: usize| channels.get(c).cloned().unwrap_or_else(|| format!("#{c}"));
         if trials.is_empty() {
-            problems.push(TrialProblem { trial: None, channel: None, message: "the set holds no trials".into() });
+            problems.push(TrialProblem {
+                trial: None,
+                channel: None,
+                message: "the set holds no trials".into(),
+            });
         }
         for (i, t) in trials.iter_mut().enumerate() {
             if t.observed.is_empty() {
-                problems.push(TrialProblem { trial: Some(i), channel: None, message: "no channel is observed".into() });
+                problems.push(TrialProblem {
+                    trial: Some(i),
+                    channel: None,
+                    message: "no channel is observed".into(),
+                });
                 continue;
             }
             if t.observed.windows(2).any(|w| w[0] >= w[1]) || t.observed.iter().any(|&c| c >= p) {
-                problems.push(TrialProblem { trial: Some(i), channel: None, message: "observed channel list is not increasing or out of range".into() });
+                problems.push(TrialProblem {
+                    trial: Some(i),
+                    channel: None,
+                    message: "observed channel list is not increasing or out of range".into(),
+                });
                 continue;
             }
             match check_spd(&t.block) {
@@ -103,24 +120,45 @@ impl TrialSet {
             None => vec![1.0; n],
             Some(w) => {
                 if w.len() != n {
-                    problems.push(TrialProblem { trial: None, channel: None, message: format!("{} weights given for {n} trials", w.len()) });
+                    problems.push(TrialProblem {
+                        trial: None,
+                        channel: None,
+                        message: format!("{} weights given for {n} trials", w.len()),
+                    });
                 } else {
                     for (i, &v) in w.iter().enumerate() {
                         if !v.is_finite() || v < 0.0 {
-                            problems.push(TrialProblem { trial: Some(i), channel: None, message: format!("weight {v} is negative or not finite") });
+                            problems.push(TrialProblem {
+                                trial: Some(i),
+                                channel: None,
+                                message: format!("weight {v} is negative or not finite"),
+                            });
                         }
                     }
                     if w.iter().all(|&v| v == 0.0) {
-                        problems.push(TrialProblem { trial: None, channel: None, message: "all weights are zero".into() });
+                        problems.push(TrialProblem {
+                            trial: None,
+                            channel: None,
+                            message: "all weights are zero".into(),
+                        });
                     }
                 }
                 w
             }
         };
         if !problems.is_empty() {
-            return Err(LacunaError::InvalidTrials { source_name: source_name.to_string(), problems });
+            return Err(LacunaError::InvalidTrials {
+                source_name: source_name.to_string(),
+                problems,
+            });
         }
-        Ok(TrialSet { channels, trials, weights, labels: None, sessions: None })
+        Ok(TrialSet {
+            channels,
+            trials,
+            weights,
+            labels: None,
+            sessions: None,
+        })
     }
 
     /// Number of trials `N`.
@@ -190,7 +228,9 @@ impl TrialSet {
     /// Errors with the first incomplete trial and one of its missing channels.
     pub fn complete_blocks(&self, scheme: &str) -> Result<Vec<&Mat>> {
         if let Some(i) = (0..self.len()).find(|&i| !self.is_complete(i)) {
-            let missing = (0..self.n_channels()).find(|&c| !self.observed(i, c)).unwrap_or(0);
+            let missing = (0..self.n_channels())
+                .find(|&c| !self.observed(i, c))
+                .unwrap_or(0);
             return Err(LacunaError::Unsupported(format!(
                 "scheme '{scheme}' needs every channel in every trial, but trial {i} lacks channel {} ({} of {} trials are incomplete); use --scheme airm-observed, which averages the observed blocks only",
                 self.channels[missing],
@@ -205,14 +245,18 @@ impl TrialSet {
     /// appearance. Trials in a group share the sub-block of any candidate mean,
     /// so per-pattern work (a Cholesky factor) is done once per group.
     pub fn pattern_groups(&self) -> Vec<PatternGroup> {
-        let mut index: std::collections::HashMap<&[usize], usize> = std::collections::HashMap::new();
+        let mut index: std::collections::HashMap<&[usize], usize> =
+            std::collections::HashMap::new();
         let mut groups: Vec<PatternGroup> = Vec::new();
         for (i, t) in self.trials.iter().enumerate() {
             match index.get(t.observed.as_slice()) {
                 Some(&g) => groups[g].trials.push(i),
                 None => {
                     index.insert(t.observed.as_slice(), groups.len());
-                    groups.push(PatternGroup { observed: t.observed.clone(), trials: vec![i] });
+                    groups.push(PatternGroup {
+                        observed: t.observed.clone(),
+                        trials: vec![i],
+                    });
                 }
             }
         }
@@ -247,14 +291,23 @@ impl TrialSet {
             .trials
             .iter()
             .map(|t| {
-                let local: Vec<usize> = (0..t.observed.len()).filter(|&a| new_index[t.observed[a]] != usize::MAX).collect();
+                let local: Vec<usize> = (0..t.observed.len())
+                    .filter(|&a| new_index[t.observed[a]] != usize::MAX)
+                    .collect();
                 let observed = local.iter().map(|&a| new_index[t.observed[a]]).collect();
-                let block = Mat::from_fn(local.len(), local.len(), |r, s| t.block[(local[r], local[s])]);
+                let block = Mat::from_fn(local.len(), local.len(), |r, s| {
+                    t.block[(local[r], local[s])]
+                });
                 Trial { observed, block }
             })
             .collect();
         let channels = keep.iter().map(|&c| self.channels[c].clone()).collect();
-        let mut out = TrialSet::new(channels, trials, Some(self.weights.clone()), "after dropping channels")?;
+        let mut out = TrialSet::new(
+            channels,
+            trials,
+            Some(self.weights.clone()),
+            "after dropping channels",
+        )?;
         out.labels = self.labels.clone();
         out.sessions = self.sessions.clone();
         Ok(out)
@@ -271,9 +324,19 @@ impl TrialSet {
     }
 
     /// Builds a set of complete trials from full matrices (all channels observed).
-    pub fn from_full(channels: Vec<String>, mats: Vec<Mat>, weights: Option<Vec<f64>>) -> Result<TrialSet> {
+    pub fn from_full(
+        channels: Vec<String>,
+        mats: Vec<Mat>,
+        weights: Option<Vec<f64>>,
+    ) -> Result<TrialSet> {
         let p = channels.len();
-        let trials = mats.into_iter().map(|m| Trial { observed: (0..p).collect(), block: m }).collect();
+        let trials = mats
+            .into_iter()
+            .map(|m| Trial {
+                observed: (0..p).collect(),
+                block: m,
+            })
+            .collect();
         TrialSet::new(channels, trials, weights, "input")
     }
 }
@@ -288,7 +351,9 @@ mod tests {
     use super::*;
 
     fn spd(k: usize, seed: usize) -> Mat {
-        let b = Mat::from_fn(k, k, |i, j| (((i + 1) * (j + 2) * (seed + 3)) % 7) as f64 / 7.0);
+        let b = Mat::from_fn(k, k, |i, j| {
+            (((i + 1) * (j + 2) * (seed + 3)) % 7) as f64 / 7.0
+        });
         &b * b.transpose() + Mat::identity(k, k)
     }
 
@@ -299,9 +364,18 @@ mod tests {
         let mut bad = spd(2, 1);
         bad[(1, 1)] = -5.0;
         let trials = vec![
-            Trial { observed: vec![0, 1, 2], block: spd(3, 0) },
-            Trial { observed: vec![0, 2], block: bad },
-            Trial { observed: vec![], block: Mat::zeros(0, 0) },
+            Trial {
+                observed: vec![0, 1, 2],
+                block: spd(3, 0),
+            },
+            Trial {
+                observed: vec![0, 2],
+                block: bad,
+            },
+            Trial {
+                observed: vec![],
+                block: Mat::zeros(0, 0),
+            },
         ];
         let err = TrialSet::new(ch, trials, Some(vec![1.0, -1.0, 1.0]), "s.npy").unwrap_err();
         let msg = err.to_string();
@@ -315,9 +389,18 @@ mod tests {
     fn groups_and_counts() {
         let ch = default_channel_names(3);
         let trials = vec![
-            Trial { observed: vec![0, 1, 2], block: spd(3, 0) },
-            Trial { observed: vec![0, 2], block: spd(2, 1) },
-            Trial { observed: vec![0, 1, 2], block: spd(3, 2) },
+            Trial {
+                observed: vec![0, 1, 2],
+                block: spd(3, 0),
+            },
+            Trial {
+                observed: vec![0, 2],
+                block: spd(2, 1),
+            },
+            Trial {
+                observed: vec![0, 1, 2],
+                block: spd(3, 2),
+            },
         ];
         let set = TrialSet::new(ch, trials, None, "t").unwrap();
         let g = set.pattern_groups();

@@ -51,26 +51,55 @@ pub fn read_npy(path: &Path) -> Result<NpyArray> {
     parse_npy(&bytes, path)
 }
 
-/// Parses NPY bytes; `path` is used only in error messages.
-pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<NpyArray> {
-    if bytes.len() < 10 || &bytes[..6] != MAGIC {
-        return Err(format_err(path, "not an NPY file (missing the \\x93NUMPY magic string)"));
+/// What an NPY header says.
+#[derive(Debug, Clone)]
+pub struct NpyHeader {
+    /// Shape as written.
+    pub shape: Vec<usize>,
+    /// dtype string.
+    pub descr: String,
+    /// Column-major data.
+    pub fortran: bool,
+    /// Bytes per element.
+    pub width: usize,
+    /// 'f' for floats, 'u' for bytes.
+    pub kind: char,
+    /// Offset of the first data byte.
+    pub data_start: usize,
+    /// Number of elements.
+    pub count: usize,
+}
+
+/// Length of the prefix (magic, version, header length, header) given its
+/// first 12 bytes, so a streaming reader knows how much to read first.
+pub fn header_extent(first: &[u8], path: &Path) -> Result<usize> {
+    if first.len() < 10 || &first[..6] != MAGIC {
+        return Err(format_err(
+            path,
+            "not an NPY file (missing the \\x93NUMPY magic string)",
+        ));
     }
-    let major = bytes[6];
-    let (header_len, header_start) = match major {
-        1 => (u16::from_le_bytes([bytes[8], bytes[9]]) as usize, 10usize),
-        2 | 3 => {
-            if bytes.len() < 12 {
-                return Err(format_err(path, "truncated NPY header"));
-            }
-            (u32::from_le_bytes([bytes[8], bytes[9], bytes[10], bytes[11]]) as usize, 12)
+    match first[6] {
+        1 => Ok(10 + u16::from_le_bytes([first[8], first[9]]) as usize),
+        2 | 3 if first.len() >= 12 => {
+            Ok(12 + u32::from_le_bytes([first[8], first[9], first[10], first[11]]) as usize)
         }
-        v => return Err(format_err(path, format!("unsupported NPY format version {v}"))),
-    };
-    let data_start = header_start
-        .checked_add(header_len)
-        .filter(|&e| e <= bytes.len())
-        .ok_or_else(|| format_err(path, "truncated NPY header"))?;
+        2 | 3 => Err(format_err(path, "truncated NPY header")),
+        v => Err(format_err(
+            path,
+            format!("unsupported NPY format version {v}"),
+        )),
+    }
+}
+
+/// Parses the header at the start of `bytes` (which must hold at least the
+/// whole header).
+pub fn parse_header(bytes: &[u8], path: &Path) -> Result<NpyHeader> {
+    let data_start = header_extent(bytes, path)?;
+    let header_start = if bytes[6] == 1 { 10 } else { 12 };
+    if data_start > bytes.len() {
+        return Err(format_err(path, "truncated NPY header"));
+    }
     let header = std::str::from_utf8(&bytes[header_start..data_start])
         .map_err(|_| format_err(path, "NPY header is not text"))?;
     let descr = dict_value(header, "descr")
@@ -81,7 +110,8 @@ pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<NpyArray> {
         Some("True") => true,
         _ => return Err(format_err(path, "NPY header has no valid 'fortran_order'")),
     };
-    let shape = parse_shape(header).ok_or_else(|| format_err(path, "NPY header has no valid 'shape'"))?;
+    let shape =
+        parse_shape(header).ok_or_else(|| format_err(path, "NPY header has no valid 'shape'"))?;
     let count = shape
         .iter()
         .try_fold(1usize, |acc, &d| acc.checked_mul(d))
@@ -94,14 +124,39 @@ pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<NpyArray> {
         other => {
             return Err(format_err(
                 path,
-                format!("dtype {other} is not supported (use float64 for matrices, uint8 or bool for masks)"),
+                format!(
+                    "dtype {other} is not supported (use float64 for matrices, uint8 or bool for masks)"
+                ),
             ));
         }
     };
-    let payload = &bytes[data_start..];
-    let need = count
+    count
         .checked_mul(width)
         .ok_or_else(|| format_err(path, "NPY shape is too large"))?;
+    Ok(NpyHeader {
+        shape,
+        descr,
+        fortran,
+        width,
+        kind,
+        data_start,
+        count,
+    })
+}
+
+/// Parses NPY bytes; `path` is used only in error messages.
+pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<NpyArray> {
+    let NpyHeader {
+        shape,
+        descr,
+        fortran,
+        width,
+        kind,
+        data_start,
+        count,
+    } = parse_header(bytes, path)?;
+    let payload = &bytes[data_start..];
+    let need = count * width;
     if payload.len() < need {
         return Err(format_err(
             path,
@@ -165,7 +220,9 @@ fn fortran_to_c<T: Copy>(v: &[T], shape: &[usize]) -> Vec<T> {
 fn dict_value(header: &str, key: &str) -> Option<String> {
     let pat_single = format!("'{key}'");
     let pat_double = format!("\"{key}\"");
-    let start = header.find(&pat_single).map(|i| i + pat_single.len())
+    let start = header
+        .find(&pat_single)
+        .map(|i| i + pat_single.len())
         .or_else(|| header.find(&pat_double).map(|i| i + pat_double.len()))?;
     let rest = header[start..].trim_start().strip_prefix(':')?.trim_start();
     let mut depth = 0i32;
@@ -198,9 +255,17 @@ fn parse_shape(header: &str) -> Option<Vec<usize>> {
 fn header_bytes(descr: &str, shape: &[usize]) -> Vec<u8> {
     let shape_txt = match shape.len() {
         1 => format!("({},)", shape[0]),
-        _ => format!("({})", shape.iter().map(|d| d.to_string()).collect::<Vec<_>>().join(", ")),
+        _ => format!(
+            "({})",
+            shape
+                .iter()
+                .map(|d| d.to_string())
+                .collect::<Vec<_>>()
+                .join(", ")
+        ),
     };
-    let mut dict = format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': {shape_txt}, }}");
+    let mut dict =
+        format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': {shape_txt}, }}");
     // Pad with spaces so that magic + 4 + header is a multiple of 64, ending in \n.
     let total = MAGIC.len() + 4 + dict.len() + 1;
     dict.push_str(&" ".repeat((64 - total % 64) % 64));
@@ -237,8 +302,14 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
         path: path.to_path_buf(),
         source,
     };
-    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
-    let name = path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_default();
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_default();
     let tmp = dir.join(format!(".{name}.{}.partial", std::process::id()));
     let result = (|| {
         let mut f = std::fs::File::create(&tmp)?;
@@ -280,13 +351,20 @@ mod tests {
     fn refuses_truncated_and_foreign() {
         let p = Path::new("x.npy");
         let full = encode_f64(&[4, 4], &[1.0; 16]);
-        let err = parse_npy(&full[..full.len() - 3], p).unwrap_err().to_string();
+        let err = parse_npy(&full[..full.len() - 3], p)
+            .unwrap_err()
+            .to_string();
         assert!(err.contains("truncated"), "{err}");
         assert!(parse_npy(b"hello world, not npy", p).is_err());
         let mut bad = full.clone();
         let pos = bad.windows(3).position(|w| w == b"<f8").unwrap();
         bad[pos..pos + 3].copy_from_slice(b"<i8");
-        assert!(parse_npy(&bad, p).unwrap_err().to_string().contains("not supported"));
+        assert!(
+            parse_npy(&bad, p)
+                .unwrap_err()
+                .to_string()
+                .contains("not supported")
+        );
     }
 
     // NEP 1: fortran_order True stores the array in column-major order.

@@ -1,13 +1,17 @@
 //! Helpers shared by the integration tests.
 #![allow(dead_code)]
 
-use lacuna::simulate::rng::Rng;
 use lacuna::Mat;
+use lacuna::simulate::rng::Rng;
 
 /// Reads a fixture written by tests/reference/make_fixtures.py.
 pub fn fixture(name: &str) -> serde_json::Value {
-    let path = format!("{}/tests/reference/fixtures/{name}.json", env!("CARGO_MANIFEST_DIR"));
-    serde_json::from_str(&std::fs::read_to_string(&path).expect("fixture file")).expect("fixture JSON")
+    let path = format!(
+        "{}/tests/reference/fixtures/{name}.json",
+        env!("CARGO_MANIFEST_DIR")
+    );
+    serde_json::from_str(&std::fs::read_to_string(&path).expect("fixture file"))
+        .expect("fixture JSON")
 }
 
 /// A JSON list of lists as a matrix.
