@@ -130,3 +130,27 @@ proptest! {
         prop_assert!(lacuna::spd::cholesky(&sqrtm_spd(&a)).is_some());
     }
 }
+
+// Normwise accuracy at condition 1e12 (common practice, no source): with a known
+// spectrum log-spaced on [1e-6, 1e6], exp(log A) and (A^{1/2})² reproduce A to 1e-12
+// relative in Frobenius norm, and the largest eigenvalue of log A is log 1e6 to 1e-13.
+// (The smallest eigenvalues are only known to about ε·κ relative, for any method.)
+#[test]
+fn matrix_functions_hold_at_condition_1e12() {
+    let p = 12;
+    let mut rng = lacuna::simulate::rng::Rng::new(12);
+    let q = lacuna::simulate::stacks::random_orthogonal(p, &mut rng);
+    let lam: Vec<f64> = (0..p)
+        .map(|k| 10f64.powf(-6.0 + 12.0 * k as f64 / (p - 1) as f64))
+        .collect();
+    let a = lacuna::spd::symmetrize(
+        &(&q * Mat::from_diagonal(&nalgebra::DVector::from_vec(lam.clone())) * q.transpose()),
+    );
+    assert!(rel_err(&expm_sym(&logm_spd(&a)), &a) < 1e-12);
+    let s = sqrtm_spd(&a);
+    assert!(rel_err(&(&s * &s), &a) < 1e-12);
+    let top = *lacuna::spd::kernels::sym_eigenvalues(&logm_spd(&a))
+        .last()
+        .unwrap();
+    assert!((top - 1e6f64.ln()).abs() < 1e-13 * 1e6f64.ln(), "{top}");
+}
