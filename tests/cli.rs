@@ -494,3 +494,57 @@ fn failed_run_keeps_previous_output() {
     assert_eq!(code, 3);
     assert_eq!(std::fs::read(&out).unwrap(), b"previous result");
 }
+
+// The README's main command, on the committed demo data (minus --release): it must
+// converge and cover all 24 electrodes.
+#[test]
+fn readme_command_runs_on_demo_data() {
+    let d = Dir::new("demo");
+    let root = env!("CARGO_MANIFEST_DIR");
+    let (out, rep) = (d.path("mean.csv"), d.path("report.json"));
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &format!("{root}/demo-data/covs.npy"),
+        "--mask",
+        &format!("{root}/demo-data/mask.csv"),
+        "--out",
+        s(&out),
+        "--report",
+        s(&rep),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        std::fs::read_to_string(&out)
+            .unwrap()
+            .starts_with("Fp1,Fp2,")
+    );
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["converged"], true);
+    assert_eq!(r["coverage"].as_array().unwrap().len(), 24);
+}
+
+// Common practice, no source: the same seed gives byte-identical simulated files,
+// and the committed demo data is what `lacuna synth --out demo-data` writes.
+#[test]
+fn synth_is_deterministic_and_reproduces_demo_data() {
+    let d = Dir::new("synth");
+    let out = d.path("demo");
+    assert_eq!(lacuna(&["synth", "--out", s(&out)]).0, 0);
+    let root = env!("CARGO_MANIFEST_DIR");
+    for f in [
+        "covs.npy",
+        "mask.csv",
+        "covs-complete.npy",
+        "truth-rest.npy",
+        "labels.csv",
+    ] {
+        let committed = std::fs::read(format!("{root}/demo-data/{f}")).unwrap();
+        assert_eq!(
+            std::fs::read(out.join(f)).unwrap(),
+            committed,
+            "{f} differs from demo-data"
+        );
+    }
+}

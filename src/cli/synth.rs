@@ -22,8 +22,9 @@ enum Scenario {
 #[derive(Args, Debug)]
 pub struct SynthArgs {
     /// Output folder (created if absent). Writes covs.npy (NaN where
-    /// unobserved), mask.npy, mask.csv (with channel names), labels.csv and
-    /// truth.npy (population covariance; for headset, truth-rest.npy and truth-task.npy).
+    /// unobserved), mask.npy, mask.csv (with channel names), and the truth:
+    /// truth.npy (uniform), or for headset covs-complete.npy (the trials before
+    /// dropout), truth-rest.npy, truth-task.npy and labels.csv.
     #[arg(long, value_name = "DIR")]
     out: PathBuf,
     /// Which simulated study to write.
@@ -101,6 +102,14 @@ pub fn run(a: SynthArgs) -> Result<i32> {
                 labels.push_str(&format!("{l},{s}\n"));
             }
             write_atomic(&a.out.join("labels.csv"), labels.as_bytes())?;
+            // The same trials before any electrode was lost: the complete-data
+            // reference, and input for the full-data schemes.
+            let complete =
+                TrialSet::from_full(study.trials.channels().to_vec(), study.full.clone(), None)?;
+            write_atomic(
+                &a.out.join("covs-complete.npy"),
+                &encode_stack_with_nan(&complete),
+            )?;
             write_matrix(
                 &a.out.join("truth-rest.npy"),
                 &study.truth[0],
