@@ -38,22 +38,9 @@ pub struct Stack {
     pub p: usize,
 }
 
-/// Reads an `(N, p, p)` float stack (a single `(p, p)` matrix is taken as N = 1).
-pub fn read_stack(path: &Path) -> Result<Stack> {
-    let arr = npy::read_npy(path)?;
-    let data = match arr.data {
-        NpyData::Float(v) => v,
-        NpyData::Byte(_) => {
-            return Err(format_err(
-                path,
-                format!(
-                    "covariance stack must be float64, found dtype {}",
-                    arr.descr
-                ),
-            ));
-        }
-    };
-    let (n, p, q) = match arr.shape.as_slice() {
+/// `(N, p)` of a stack shape `(N, p, p)` (or `(p, p)` as one trial), or why not.
+fn stack_dims(path: &Path, shape: &[usize]) -> Result<(usize, usize)> {
+    let (n, p, q) = match shape {
         [n, p, q] => (*n, *p, *q),
         [p, q] => (1, *p, *q),
         s => {
@@ -72,6 +59,25 @@ pub fn read_stack(path: &Path) -> Result<Stack> {
     if n == 0 || p == 0 {
         return Err(format_err(path, "covariance stack is empty"));
     }
+    Ok((n, p))
+}
+
+/// Reads an `(N, p, p)` float stack (a single `(p, p)` matrix is taken as N = 1).
+pub fn read_stack(path: &Path) -> Result<Stack> {
+    let arr = npy::read_npy(path)?;
+    let data = match arr.data {
+        NpyData::Float(v) => v,
+        NpyData::Byte(_) => {
+            return Err(format_err(
+                path,
+                format!(
+                    "covariance stack must be float64, found dtype {}",
+                    arr.descr
+                ),
+            ));
+        }
+    };
+    let (n, p) = stack_dims(path, &arr.shape)?;
     Ok(Stack { data, n, p })
 }
 
@@ -194,19 +200,6 @@ fn read_mask_csv(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
     })
 }
 
-/// Infers the mask from NaN diagonal entries: a channel whose variance is NaN
-/// in a trial is unobserved there.
-pub fn infer_mask(stack: &Stack) -> Vec<bool> {
-    let (n, p) = (stack.n, stack.p);
-    let mut m = Vec::with_capacity(n * p);
-    for i in 0..n {
-        for c in 0..p {
-            m.push(!stack.data[i * p * p + c * p + c].is_nan());
-        }
-    }
-    m
-}
-
 /// Reads trial weights: NPY float64 `(N,)` or a one-column CSV (header optional).
 pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
     let w = if is_csv(path) {
@@ -277,25 +270,7 @@ fn stack_shape(path: &Path) -> Result<(usize, usize, npy::NpyHeader)> {
         .map_err(read_err)?;
     first.extend_from_slice(&rest);
     let h = npy::parse_header(&first, path)?;
-    let (n, p, q) = match h.shape.as_slice() {
-        [n, p, q] => (*n, *p, *q),
-        [p, q] => (1, *p, *q),
-        s => {
-            return Err(format_err(
-                path,
-                format!("covariance stack must have shape (N, p, p), found {s:?}"),
-            ));
-        }
-    };
-    if p != q {
-        return Err(format_err(
-            path,
-            format!("matrices must be square, found {p}×{q}"),
-        ));
-    }
-    if n == 0 || p == 0 {
-        return Err(format_err(path, "covariance stack is empty"));
-    }
+    let (n, p) = stack_dims(path, &h.shape)?;
     if h.kind != 'f' {
         return Err(format_err(
             path,

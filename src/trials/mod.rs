@@ -313,16 +313,6 @@ impl TrialSet {
         Ok(out)
     }
 
-    /// Replaces the weights (validated).
-    pub fn with_weights(self, weights: Vec<f64>, source_name: &str) -> Result<TrialSet> {
-        let labels = self.labels.clone();
-        let sessions = self.sessions.clone();
-        let mut out = TrialSet::new(self.channels, self.trials, Some(weights), source_name)?;
-        out.labels = labels;
-        out.sessions = sessions;
-        Ok(out)
-    }
-
     /// Builds a set of complete trials from full matrices (all channels observed).
     pub fn from_full(
         channels: Vec<String>,
