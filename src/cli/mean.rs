@@ -52,6 +52,12 @@ pub struct MeanArgs {
     /// Seed for the random extra starts.
     #[arg(long, default_value_t = 0)]
     seed: u64,
+    /// λ for --scheme diagonal-loading: every trial gets λ·(trace/p) added to its diagonal.
+    #[arg(long, default_value_t = 1e-2)]
+    loading: f64,
+    /// α for --scheme shrinkage: every trial becomes (1−α)·C + α·(trace/p)·I.
+    #[arg(long, default_value_t = 0.1)]
+    shrinkage: f64,
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
     drop_unobserved: bool,
@@ -124,6 +130,8 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         starts: a.starts,
         seed: a.seed,
         observer,
+        loading: a.loading,
+        shrinkage: a.shrinkage,
     };
     let result = scheme.average(&set, &options)?;
     if show_progress {

@@ -59,7 +59,7 @@ pub fn run() -> i32 {
                 } else {
                     "complete trials only"
                 };
-                println!("{:<15} {} ({missing})", s.name(), s.summary());
+                println!("{:<17} {} ({missing})", s.name(), s.summary());
             }
             Ok(0)
         }

@@ -94,23 +94,7 @@ impl InitRule {
                 Mat::identity(p, p) * g
             }
             InitRule::AvailableCase => {
-                let mut sum = Mat::zeros(p, p);
-                let mut cnt = Mat::zeros(p, p);
-                for (t, &wi) in set.trials().iter().zip(&w) {
-                    for (a, &ca) in t.observed.iter().enumerate() {
-                        for (b, &cb) in t.observed.iter().enumerate() {
-                            sum[(ca, cb)] += wi * t.block[(a, b)];
-                            cnt[(ca, cb)] += wi;
-                        }
-                    }
-                }
-                let avg = Mat::from_fn(p, p, |a, b| {
-                    if cnt[(a, b)] > 0.0 {
-                        sum[(a, b)] / cnt[(a, b)]
-                    } else {
-                        0.0
-                    }
-                });
+                let avg = super::alternatives::pairwise_mean(set);
                 // Pairwise averages need not be PD; floor the spectrum at
                 // 1e-3 of the mean variance (common practice, no source).
                 let floor = 1e-3 * avg.trace() / p as f64;

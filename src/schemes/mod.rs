@@ -10,12 +10,14 @@
 //! trait, then list it in [`all_schemes`] (see DEVELOPERS.md).
 
 mod airm_observed;
+mod alternatives;
 mod closed_form;
 mod karcher;
 
 use std::sync::Arc;
 
 pub use airm_observed::{AirmObserved, InitRule, MaskedKarcherProblem};
+pub use alternatives::{AvailableCase, CompleteTrials, DiagonalLoading, Shrinkage, pairwise_mean};
 pub use closed_form::{Arithmetic, Harmonic, LogEuclidean};
 pub use karcher::Karcher;
 
@@ -40,6 +42,10 @@ pub struct SchemeOptions {
     pub seed: u64,
     /// Called after every accepted iteration (progress display).
     pub observer: Option<Observer>,
+    /// λ of `diagonal-loading` (load = λ·trace/p).
+    pub loading: f64,
+    /// α of `shrinkage`, in (0, 1].
+    pub shrinkage: f64,
 }
 
 impl Default for SchemeOptions {
@@ -50,6 +56,8 @@ impl Default for SchemeOptions {
             starts: 1,
             seed: 0,
             observer: None,
+            loading: 1e-2,
+            shrinkage: 0.1,
         }
     }
 }
@@ -61,6 +69,8 @@ impl std::fmt::Debug for SchemeOptions {
             .field("init", &self.init)
             .field("starts", &self.starts)
             .field("seed", &self.seed)
+            .field("loading", &self.loading)
+            .field("shrinkage", &self.shrinkage)
             .finish()
     }
 }
@@ -179,6 +189,10 @@ pub trait AveragingScheme: Sync + Send {
 pub fn all_schemes() -> Vec<Box<dyn AveragingScheme>> {
     vec![
         Box::new(AirmObserved),
+        Box::new(CompleteTrials),
+        Box::new(AvailableCase),
+        Box::new(DiagonalLoading),
+        Box::new(Shrinkage),
         Box::new(Karcher),
         Box::new(LogEuclidean),
         Box::new(Arithmetic),

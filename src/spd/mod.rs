@@ -16,6 +16,7 @@ pub mod distance;
 pub mod functions;
 pub mod geodesic;
 pub mod kernels;
+pub mod nearest;
 pub mod validate;
 
 pub use distance::{airm_distance, log_euclidean_distance};
