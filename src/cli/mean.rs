@@ -100,16 +100,16 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     let started = Instant::now();
     let mut set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
     let mut dropped = Vec::new();
-    let ident0 = identifiability(&set);
-    if a.drop_unobserved && !ident0.never_observed.is_empty() {
-        dropped = ident0
+    let mut ident = identifiability(&set);
+    if a.drop_unobserved && !ident.never_observed.is_empty() {
+        dropped = ident
             .never_observed
             .iter()
             .map(|&c| set.channels()[c].clone())
             .collect();
-        set = set.without_channels(&ident0.never_observed)?;
+        set = set.without_channels(&ident.never_observed)?;
+        ident = identifiability(&set);
     }
-    let ident = identifiability(&set);
     let show_progress = !a.quiet && std::io::stderr().is_terminal();
     let observer: Option<lacuna::schemes::Observer> = if show_progress {
         Some(Arc::new(|r: &lacuna::solve::IterRecord| {
