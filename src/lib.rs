@@ -21,6 +21,7 @@
 
 pub mod diagnose;
 pub mod error;
+pub mod ingest;
 pub mod report;
 pub mod schemes;
 pub mod simulate;
