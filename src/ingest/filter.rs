@@ -291,6 +291,12 @@ impl Sos {
         Ok(())
     }
 
+    /// Causal filtering (one forward pass from rest), for simulation.
+    pub fn filter_causal(&self, x: &mut [f64]) {
+        let zero = vec![[0.0, 0.0]; self.sections.len()];
+        self.pass(x, &zero, 0.0);
+    }
+
     /// Number of samples after which the impulse response stays below
     /// `rel` of its peak: the margin a segment needs so that cutting the
     /// signal there changes the filtered segment by at most about `rel`.
@@ -305,7 +311,7 @@ impl Sos {
             .map_or(0, |i| i + 1)
     }
 
-    /// Complex frequency response at `f` Hz (sampling rate `fs`).
+    /// Magnitude of the frequency response at `f` Hz (sampling rate `fs`).
     pub fn response(&self, f: f64, fs: f64) -> f64 {
         let w = 2.0 * std::f64::consts::PI * f / fs;
         let z1 = C(w.cos(), -w.sin());

@@ -2,5 +2,6 @@
 //! deterministic from a seed.
 
 pub mod headset;
+pub mod recording;
 pub mod rng;
 pub mod stacks;

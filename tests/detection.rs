@@ -1,0 +1,158 @@
+//! Dropout detection on the simulator's ground truth, through the whole
+//! ingest path (EDF written by our writer, read back, epoched, filtered).
+//! The thresholds are the acceptance figures (precision and recall
+//! ≥ 0.95 on the default scenario); common practice, no source.
+
+use lacuna::ingest::edf::{EdfFile, EdfVariant, EdfWriteSpec, write_edf};
+use lacuna::ingest::epochs::{Windowing, plan_epochs};
+use lacuna::ingest::pipeline::{ExtractOptions, SessionInput, extract};
+use lacuna::ingest::{InMemorySource, SignalSource};
+use lacuna::simulate::recording::{RecordingParams, SimulatedStudy, simulate_recording};
+
+fn temp_dir(tag: &str) -> std::path::PathBuf {
+    let d = std::env::temp_dir().join(format!("lacuna-det-{tag}-{}", std::process::id()));
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+fn windowing(study: &SimulatedStudy, s: usize, params: &RecordingParams) -> Windowing {
+    Windowing::Events {
+        events: study.sessions[s].events.clone(),
+        offset: params.epoch_offset,
+        length: params.epoch_length,
+        keep: vec![],
+    }
+}
+
+/// Precision and recall of masked cells, with a breakdown printed on failure.
+fn score(study: &SimulatedStudy, mask: &[bool], p: usize) -> (f64, f64, String) {
+    let truth = study.true_mask();
+    assert_eq!(truth.len(), mask.len());
+    let (mut tp, mut fp, mut fneg) = (0usize, 0usize, 0usize);
+    let mut missed = std::collections::BTreeMap::new();
+    for (i, (&t, &m)) in truth.iter().zip(mask).enumerate() {
+        match (t, m) {
+            (false, false) => tp += 1,
+            (true, false) => fp += 1,
+            (false, true) => {
+                fneg += 1;
+                let kind = study.faults[i / p][i % p].map(|f| f.name()).unwrap_or("?");
+                *missed.entry(kind).or_insert(0) += 1;
+            }
+            _ => {}
+        }
+    }
+    let precision = tp as f64 / (tp + fp).max(1) as f64;
+    let recall = tp as f64 / (tp + fneg).max(1) as f64;
+    (
+        precision,
+        recall,
+        format!("tp {tp} fp {fp} fn {fneg}, missed by fault kind {missed:?}"),
+    )
+}
+
+#[test]
+fn detection_recovers_the_default_scenario() {
+    let params = RecordingParams::default();
+    let study = simulate_recording(&params).unwrap();
+    let dir = temp_dir("default");
+    let mut inputs = Vec::new();
+    for (s, session) in study.sessions.iter().enumerate() {
+        let path = dir.join(format!("session-{}.edf", s + 1));
+        let spec = EdfWriteSpec {
+            variant: EdfVariant::EdfPlus,
+            channel_names: &study.channels,
+            unit: "uV",
+            physical_range: (-params.range_uv, params.range_uv),
+            sampling_rate: params.rate,
+            record_seconds: 1,
+            patient: "X",
+            recording: "detection test",
+            events: &session.events,
+        };
+        write_edf(&path, &spec, &session.signals).unwrap();
+        let source = EdfFile::open(&path).unwrap();
+        let epochs = plan_epochs(&source, &windowing(&study, s, &params)).unwrap();
+        inputs.push(SessionInput {
+            session: format!("session-{}", s + 1),
+            source: Box::new(source),
+            epochs,
+            isolated: false,
+        });
+    }
+    let opts = ExtractOptions {
+        band: params.band,
+        ..ExtractOptions::default()
+    };
+    let out = extract(inputs, &opts, &|_, _| {}).unwrap();
+    std::fs::remove_dir_all(&dir).ok();
+    let p = study.channels.len();
+    let truth_masked = study.true_mask().iter().filter(|m| !**m).count();
+    let (precision, recall, detail) = score(&study, &out.mask, p);
+    let mut reasons = std::collections::BTreeMap::new();
+    for m in &out.masked {
+        *reasons.entry(m.reason.name()).or_insert(0) += 1;
+    }
+    eprintln!(
+        "masked {truth_masked} true cells; precision {precision:.3} recall {recall:.3}; {detail}; reasons {reasons:?}"
+    );
+    assert!(truth_masked > 0);
+    assert!(precision >= 0.95, "precision {precision}: {detail}");
+    assert!(recall >= 0.95, "recall {recall}: {detail}");
+    // The extracted set is a valid trial set with labels and sessions.
+    let set = out.trial_set().unwrap();
+    assert_eq!(set.len(), study.labels.len());
+    assert_eq!(set.labels.as_ref().unwrap(), &study.labels);
+}
+
+// All fault types mixed, including NaN samples, in memory (no EDF rounding).
+#[test]
+fn detection_with_mixed_faults_including_nan() {
+    let params = RecordingParams {
+        nan_faults: true,
+        dropout_scale: 2.0,
+        seed: 77,
+        ..RecordingParams::default()
+    };
+    let study = simulate_recording(&params).unwrap();
+    let kinds: std::collections::BTreeSet<&str> = study
+        .faults
+        .iter()
+        .flatten()
+        .flatten()
+        .map(|f| f.name())
+        .collect();
+    for k in ["lost", "railed", "disconnected", "noisy-session"] {
+        assert!(kinds.contains(k), "scenario should contain {k}: {kinds:?}");
+    }
+    let mut inputs = Vec::new();
+    for (s, session) in study.sessions.iter().enumerate() {
+        let source = InMemorySource {
+            name: format!("memory {s}"),
+            channels: study.channels.clone(),
+            rate: params.rate as f64,
+            data: std::sync::Arc::new(session.signals.clone()),
+            rails: Some(vec![
+                (-params.range_uv, params.range_uv);
+                study.channels.len()
+            ]),
+        };
+        let epochs = plan_epochs(&source, &windowing(&study, s, &params)).unwrap();
+        assert_eq!(source.n_samples(), session.signals[0].len());
+        inputs.push(SessionInput {
+            session: format!("s{s}"),
+            source: Box::new(source),
+            epochs,
+            isolated: false,
+        });
+    }
+    let opts = ExtractOptions {
+        band: params.band,
+        ..ExtractOptions::default()
+    };
+    let out = extract(inputs, &opts, &|_, _| {}).unwrap();
+    let (precision, recall, detail) = score(&study, &out.mask, study.channels.len());
+    eprintln!("mixed: precision {precision:.3} recall {recall:.3}; {detail}");
+    assert!(precision >= 0.95 && recall >= 0.95, "{detail}");
+    assert!(out.masked.iter().any(|m| m.reason.name() == "non-finite"));
+}
