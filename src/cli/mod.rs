@@ -4,6 +4,7 @@
 //! calls and maps [`lacuna::LacunaError`] to a message and an exit code
 //! (0 ok, 1 output failure, 2 usage, 3 invalid input, 4 numerical failure).
 
+mod extract;
 mod mean;
 mod synth;
 
@@ -33,11 +34,13 @@ pub struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Cut recordings (EDF/BDF/CSV) or ready epochs (NPY) into a masked covariance stack.
+    Extract(extract::ExtractArgs),
     /// Average a covariance stack with one scheme and write the mean.
     Mean(mean::MeanArgs),
     /// List the averaging schemes and what each assumes.
     Schemes,
-    /// Generate a synthetic trial set with a known population covariance.
+    /// Generate simulated data with known truth: covariance stacks or raw recordings.
     Synth(synth::SynthArgs),
 }
 
@@ -51,6 +54,7 @@ pub fn run() -> i32 {
         }
     };
     let outcome = match cli.command {
+        Command::Extract(args) => extract::run(args),
         Command::Mean(args) => mean::run(args),
         Command::Schemes => {
             for s in lacuna::all_schemes() {

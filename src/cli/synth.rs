@@ -3,11 +3,15 @@
 use std::path::{Path, PathBuf};
 
 use clap::{Args, ValueEnum};
+use lacuna::ingest::edf::{EdfVariant, EdfWriteSpec, write_edf};
+use lacuna::ingest::text::encode_events_csv;
 use lacuna::simulate::headset::{HeadsetParams, simulate};
+use lacuna::simulate::recording::{RecordingParams, simulate_recording};
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
 use lacuna::trials::TrialSet;
 use lacuna::trials::io::{encode_mask, encode_stack_with_nan, write_matrix};
+use lacuna::trials::npy::encode_f64;
 use lacuna::trials::npy::write_atomic;
 use lacuna::{LacunaError, Result};
 
@@ -17,6 +21,19 @@ enum Scenario {
     Headset,
     /// One random population covariance, uniform random dropout (sizes set by flags).
     Uniform,
+    /// The headset study as raw recordings (EDF+/BDF+ per session, or NPY
+    /// epochs) with electrode faults and the ground truth; input for `lacuna extract`.
+    Recording,
+}
+
+#[derive(Clone, Copy, Debug, ValueEnum, PartialEq)]
+enum RecordingFormat {
+    /// EDF+ (16-bit) with annotations, plus an events CSV per session.
+    Edf,
+    /// BDF+ (24-bit) with annotations, plus an events CSV per session.
+    Bdf,
+    /// NPY epochs (N, p, T) float64; lost samples are NaN.
+    Npy,
 }
 
 #[derive(Args, Debug)]
@@ -30,12 +47,21 @@ pub struct SynthArgs {
     /// Which simulated study to write.
     #[arg(long, value_enum, default_value = "headset")]
     scenario: Scenario,
-    /// Number of trials (uniform scenario).
-    #[arg(long, default_value_t = 200)]
-    trials: usize,
-    /// Number of channels (uniform scenario).
-    #[arg(long, default_value_t = 16)]
-    channels: usize,
+    /// Number of trials (uniform: 200; recording: 30 per session).
+    #[arg(long)]
+    trials: Option<usize>,
+    /// Number of channels (uniform: 16; recording: 24).
+    #[arg(long)]
+    channels: Option<usize>,
+    /// Sessions (recording scenario).
+    #[arg(long, default_value_t = 3)]
+    sessions: usize,
+    /// Sampling rate in Hz (recording scenario).
+    #[arg(long, default_value_t = 256)]
+    rate: usize,
+    /// File format of the recording scenario.
+    #[arg(long, value_enum, default_value = "edf")]
+    format: RecordingFormat,
     /// Samples per trial: how noisy each trial's covariance is.
     #[arg(long, default_value_t = 256)]
     samples: usize,
@@ -76,14 +102,25 @@ fn write_set(dir: &Path, set: &TrialSet) -> Result<()> {
 }
 
 pub fn run(a: SynthArgs) -> Result<i32> {
-    if a.channels < 2
-        || a.trials == 0
+    let (default_trials, default_channels) = match a.scenario {
+        Scenario::Recording => (30, 24),
+        _ => (200, 16),
+    };
+    let trials = a.trials.unwrap_or(default_trials);
+    let channels = a.channels.unwrap_or(default_channels);
+    if channels < 2
+        || trials == 0
         || a.samples == 0
         || !(0.0..=1.0).contains(&a.dropout)
         || a.max_lost == 0
         || !(a.condition >= 1.0)
     {
         return Err(LacunaError::InvalidOption("need --channels ≥ 2, --trials ≥ 1, --samples ≥ 1, --dropout in [0, 1], --max-lost ≥ 1, --condition ≥ 1".into()));
+    }
+    if a.sessions == 0 || a.rate < 64 {
+        return Err(LacunaError::InvalidOption(
+            "need --sessions ≥ 1 and --rate ≥ 64 Hz".into(),
+        ));
     }
     std::fs::create_dir_all(&a.out).map_err(|source| LacunaError::Write {
         path: a.out.clone(),
@@ -132,23 +169,136 @@ pub fn run(a: SynthArgs) -> Result<i32> {
         }
         Scenario::Uniform => {
             let mut rng = Rng::new(a.seed);
-            let truth = random_spd(a.channels, a.condition, &mut rng);
-            let full: Vec<_> = (0..a.trials)
+            let truth = random_spd(channels, a.condition, &mut rng);
+            let full: Vec<_> = (0..trials)
                 .map(|_| sample_covariance(&truth, a.samples, &mut rng))
                 .collect();
             let set = masked_set(
                 &full,
-                random_dropout(a.trials, a.channels, a.dropout, a.max_lost, &mut rng),
+                random_dropout(trials, channels, a.dropout, a.max_lost, &mut rng),
             );
             write_set(&a.out, &set)?;
             write_matrix(&a.out.join("truth.npy"), &truth, set.channels())?;
             eprintln!(
                 "wrote {} trials × {} channels to {}",
-                a.trials,
-                a.channels,
+                trials,
+                channels,
                 a.out.display()
             );
         }
+        Scenario::Recording => write_recording(&a, trials, channels)?,
     }
     Ok(0)
+}
+
+fn write_recording(a: &SynthArgs, trials: usize, channels: usize) -> Result<()> {
+    let params = RecordingParams {
+        channels,
+        rate: a.rate,
+        sessions: a.sessions,
+        trials_per_session: trials,
+        nan_faults: a.format == RecordingFormat::Npy,
+        seed: a.seed,
+        ..RecordingParams::default()
+    };
+    let study = simulate_recording(&params)?;
+    let p = study.channels.len();
+    match a.format {
+        RecordingFormat::Edf | RecordingFormat::Bdf => {
+            let (variant, ext) = if a.format == RecordingFormat::Edf {
+                (EdfVariant::EdfPlus, "edf")
+            } else {
+                (EdfVariant::BdfPlus, "bdf")
+            };
+            for (k, session) in study.sessions.iter().enumerate() {
+                let spec = EdfWriteSpec {
+                    variant,
+                    channel_names: &study.channels,
+                    unit: "uV",
+                    physical_range: (-params.range_uv, params.range_uv),
+                    sampling_rate: params.rate,
+                    record_seconds: 1,
+                    patient: "X X X X",
+                    recording: &format!("Startdate X X simulated-headset session-{}", k + 1),
+                    events: &session.events,
+                };
+                write_edf(
+                    &a.out.join(format!("session-{}.{ext}", k + 1)),
+                    &spec,
+                    &session.signals,
+                )?;
+                write_atomic(
+                    &a.out.join(format!("events-{}.csv", k + 1)),
+                    &encode_events_csv(&session.events),
+                )?;
+            }
+        }
+        RecordingFormat::Npy => {
+            let len = (params.epoch_length * params.rate as f64).round() as usize;
+            let mut data = Vec::new();
+            for session in &study.sessions {
+                for e in &session.events {
+                    let start =
+                        ((e.onset + params.epoch_offset) * params.rate as f64).round() as usize;
+                    for sig in &session.signals {
+                        data.extend_from_slice(&sig[start..start + len]);
+                    }
+                }
+            }
+            let n = data.len() / (p * len);
+            write_atomic(&a.out.join("epochs.npy"), &encode_f64(&[n, p, len], &data))?;
+        }
+    }
+    let mut labels = String::from("label,session\n");
+    let mut faults = String::from("trial,session,channel,fault\n");
+    let mut mask = study.channels.join(",");
+    mask.push('\n');
+    for (i, (label, row)) in study.labels.iter().zip(&study.faults).enumerate() {
+        let session = format!("session-{}", i / trials + 1);
+        labels.push_str(&format!("{label},{session}\n"));
+        let cells: Vec<&str> = row
+            .iter()
+            .map(|f| if f.is_some() { "0" } else { "1" })
+            .collect();
+        mask.push_str(&cells.join(","));
+        mask.push('\n');
+        for (c, f) in row.iter().enumerate() {
+            if let Some(f) = f {
+                faults.push_str(&format!(
+                    "{i},{session},{},{}\n",
+                    study.channels[c],
+                    f.name()
+                ));
+            }
+        }
+    }
+    let mut positions = String::from("channel,x,y,z\n");
+    for (name, q) in study.channels.iter().zip(&study.positions) {
+        positions.push_str(&format!("{name},{:.6},{:.6},{:.6}\n", q[0], q[1], q[2]));
+    }
+    write_atomic(&a.out.join("truth-labels.csv"), labels.as_bytes())?;
+    write_atomic(&a.out.join("truth-faults.csv"), faults.as_bytes())?;
+    write_atomic(&a.out.join("truth-mask.csv"), mask.as_bytes())?;
+    write_atomic(&a.out.join("positions.csv"), positions.as_bytes())?;
+    write_matrix(
+        &a.out.join("truth-rest.npy"),
+        &study.truth[0],
+        &study.channels,
+    )?;
+    write_matrix(
+        &a.out.join("truth-task.npy"),
+        &study.truth[1],
+        &study.channels,
+    )?;
+    let lost = study.true_mask().iter().filter(|m| !**m).count();
+    eprintln!(
+        "wrote the headset recordings ({} sessions × {} trials, {} channels at {} Hz, {:.1}% of trial-channel cells faulty) to {}",
+        a.sessions,
+        trials,
+        p,
+        a.rate,
+        100.0 * lost as f64 / (study.faults.len() * p) as f64,
+        a.out.display()
+    );
+    Ok(())
 }

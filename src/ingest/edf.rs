@@ -224,7 +224,7 @@ impl EdfHeader {
                         8,
                         &format!("{name}: samples per record"),
                     )?;
-                    if n < 1 || n > 1 << 24 {
+                    if !(1..=1 << 24).contains(&n) {
                         return Err(fail(format!(
                             "signal {name}: {n} samples per record is out of range"
                         )));
@@ -675,20 +675,8 @@ pub fn encode_edf(spec: &EdfWriteSpec, signals: &[Vec<f64>]) -> Result<Vec<u8>> 
             format_edf_number(pmax)
         }
     });
-    each(&mut h, 8, &|k| {
-        if is_annot(k) {
-            dmin.to_string()
-        } else {
-            dmin.to_string()
-        }
-    });
-    each(&mut h, 8, &|k| {
-        if is_annot(k) {
-            dmax.to_string()
-        } else {
-            dmax.to_string()
-        }
-    });
+    each(&mut h, 8, &|_| dmin.to_string());
+    each(&mut h, 8, &|_| dmax.to_string());
     each(&mut h, 80, &|k| {
         if is_annot(k) {
             String::new()

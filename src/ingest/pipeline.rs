@@ -405,15 +405,15 @@ fn fill_non_finite(raw: &[f64]) -> Vec<f64> {
         return x;
     }
     let mut k = 0;
-    for i in 0..x.len() {
-        if x[i].is_finite() {
+    for (i, v) in x.iter_mut().enumerate() {
+        if v.is_finite() {
             continue;
         }
         while k + 1 < finite.len() && finite[k + 1] < i {
             k += 1;
         }
         let (a, b) = (finite[k], finite.get(k + 1).copied());
-        x[i] = match b {
+        *v = match b {
             _ if i < a => raw[a],
             Some(b) => raw[a] + (raw[b] - raw[a]) * (i - a) as f64 / (b - a) as f64,
             None => raw[a],
@@ -430,7 +430,8 @@ fn measure_session(
 ) -> Result<Measured> {
     let source = &input.source;
     let fs = source.sampling_rate();
-    let (filters, note) = design_filters(fs, opts, input.isolated)?;
+    let (filters, note) = design_filters(fs, opts, input.isolated)
+        .map_err(|e| LacunaError::Unsupported(format!("{}: {e}", source.name())))?;
     let rails: Option<Vec<(f64, f64)>> =
         source.rails().map(|r| sel.iter().map(|&k| r[k]).collect());
     let span = ((opts.chunk_seconds * fs) as usize).max(1);
@@ -578,19 +579,19 @@ fn decide_session(
     // Session-relative flat rule: far below the channel's own median.
     if opts.detect.enabled {
         for c in 0..p {
-            let mut v: Vec<f64> = (0..n)
-                .filter(|&e| reasons[e][c].is_none())
-                .map(|e| measured.stats[e][c].robust_sd)
+            let mut v: Vec<f64> = reasons
+                .iter()
+                .zip(&measured.stats)
+                .filter(|(r, _)| r[c].is_none())
+                .map(|(_, st)| st[c].robust_sd)
                 .collect();
             if v.is_empty() {
                 continue;
             }
             let med = quantile_in_place(&mut v, 0.5);
-            for e in 0..n {
-                if reasons[e][c].is_none()
-                    && measured.stats[e][c].robust_sd < opts.detect.flat_relative * med
-                {
-                    reasons[e][c] = Some(Reason::Flat);
+            for (r, st) in reasons.iter_mut().zip(&measured.stats) {
+                if r[c].is_none() && st[c].robust_sd < opts.detect.flat_relative * med {
+                    r[c] = Some(Reason::Flat);
                 }
             }
         }

@@ -340,8 +340,8 @@ pub fn simulate_recording(params: &RecordingParams) -> crate::Result<SimulatedSt
             let scale = s.amplitude / unit_var[k].sqrt();
             for (i, v) in x[warmup..].iter().enumerate() {
                 let a = scale * v * if task_at[i] { s.task_gain } else { 1.0 };
-                for c in 0..p {
-                    signals[c][i] += s.pattern[c] * a;
+                for (sig, w) in signals.iter_mut().zip(&s.pattern) {
+                    sig[i] += w * a;
                 }
             }
         }
@@ -381,9 +381,9 @@ pub fn simulate_recording(params: &RecordingParams) -> crate::Result<SimulatedSt
                 }
             }
         }
-        for c in 0..p {
-            apply_faults(&mut signals[c], &cell, c, &cues, params, &mut rng);
-            for v in signals[c].iter_mut() {
+        for (c, sig) in signals.iter_mut().enumerate() {
+            apply_faults(sig, &cell, c, &cues, params, &mut rng);
+            for v in sig.iter_mut() {
                 if v.is_finite() {
                     *v = v.clamp(-params.range_uv, params.range_uv);
                 }
@@ -452,9 +452,9 @@ fn apply_faults(
             }
         };
         let mut drift = 0.0;
-        for i in a..b {
+        for (i, xi) in x.iter_mut().enumerate().take(b).skip(a) {
             let w = weight(i);
-            let orig = x[i];
+            let orig = *xi;
             let faulty = match kind {
                 Fault::Flat => 0.02 * rng.normal(),
                 Fault::Railed => params.range_uv * 1.5,
@@ -466,7 +466,7 @@ fn apply_faults(
                 Fault::Pop => orig + 60.0 * rng.normal(),
                 Fault::Lost => f64::NAN,
             };
-            x[i] = if kind == Fault::Lost {
+            *xi = if kind == Fault::Lost {
                 // Samples are lost outright in the fully faulty stretch.
                 if w >= 1.0 { f64::NAN } else { orig }
             } else {

@@ -1,0 +1,479 @@
+//! `lacuna extract`: recordings → epochs → mask with reasons → covariance stack.
+
+use std::io::IsTerminal;
+use std::path::{Path, PathBuf};
+
+use clap::Args;
+use lacuna::ingest::covariance::Estimator;
+use lacuna::ingest::detect::{DetectOptions, Reason};
+use lacuna::ingest::edf::EdfFile;
+use lacuna::ingest::epochs::{EpochSpec, Windowing, plan_epochs, read_npy_epochs};
+use lacuna::ingest::pipeline::{ExtractOptions, Extraction, SessionInput, extract};
+use lacuna::ingest::text::{read_events_csv, read_signal_csv};
+use lacuna::ingest::{Event, SignalSource};
+use lacuna::trials::io::{encode_mask, encode_stack_with_nan, read_mask};
+use lacuna::trials::npy::write_atomic;
+use lacuna::{LacunaError, Result};
+use serde_json::json;
+
+#[derive(Args, Debug)]
+#[command(after_help = "Examples:
+  # EDF+/BDF+ recordings whose annotations mark the trials (one file per session):
+  lacuna extract demo-data/recording/session-*.edf --offset 0.5 --length 2 --band 8-30 --out trials
+  # A CSV recording with an events CSV, fixed 2 s windows instead of events:
+  lacuna extract run.csv --rate 250 --window 2 --step 1 --out trials
+  # Ready epochs (N × p × T):
+  lacuna extract --epochs epochs.npy --rate 250 --band 8-30 --out trials
+
+Then: lacuna mean --covs trials/covs.npy --mask trials/mask.csv --out mean.csv")]
+pub struct ExtractArgs {
+    /// Recordings, one per session: EDF/EDF+ or BDF/BDF+ (sniffed from the
+    /// header), or CSV (samples × channels with a header row; needs --rate).
+    #[arg(value_name = "RECORDING")]
+    recordings: Vec<PathBuf>,
+    /// Ready epochs instead of recordings: NPY float32/float64 (N, p, T); needs --rate.
+    #[arg(long, value_name = "EPOCHS.npy", conflicts_with = "recordings")]
+    epochs: Option<PathBuf>,
+    /// Events CSV (onset, duration, label; seconds), one per recording, in
+    /// the same order. Default: the EDF+/BDF+ annotations.
+    #[arg(long, value_name = "EVENTS.csv")]
+    events: Vec<PathBuf>,
+    /// Sampling rate in Hz for CSV recordings and NPY epochs.
+    #[arg(long, value_name = "HZ")]
+    rate: Option<f64>,
+    /// Epoch start relative to each event's onset, seconds.
+    #[arg(long, default_value_t = 0.0, allow_hyphen_values = true)]
+    offset: f64,
+    /// Epoch length in seconds (with events). Default: each event's duration
+    /// when all events share one, else required.
+    #[arg(long, value_name = "SECONDS")]
+    length: Option<f64>,
+    /// Fixed windows of this many seconds instead of events.
+    #[arg(long, value_name = "SECONDS", conflicts_with_all = ["events", "length"])]
+    window: Option<f64>,
+    /// Step between fixed windows (default: the window; shorter steps overlap).
+    #[arg(long, value_name = "SECONDS", requires = "window")]
+    step: Option<f64>,
+    /// Keep only events with these labels (comma-separated).
+    #[arg(long, value_delimiter = ',', value_name = "LABELS")]
+    labels: Vec<String>,
+    /// Band-pass in Hz, LOW-HIGH (zero-phase Butterworth). Default: no band filter.
+    #[arg(long, value_name = "LOW-HIGH")]
+    band: Option<String>,
+    /// Butterworth prototype order of the band-pass (the band-pass has twice the poles).
+    #[arg(long, default_value_t = 4)]
+    order: usize,
+    /// Covariance estimator per epoch: oas, ledoit-wolf or sample.
+    #[arg(long, default_value = "oas")]
+    estimator: String,
+    /// Use only these channels, in this order (comma-separated names).
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    channels: Vec<String>,
+    /// Channels to mask in every epoch (comma-separated names).
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    bad: Vec<String>,
+    /// A mask (CSV with channel names, or NPY; epochs × channels, 1 = observed)
+    /// that replaces automatic detection.
+    #[arg(long, value_name = "MASK")]
+    mask: Option<PathBuf>,
+    /// Turn automatic detection off: only non-finite samples and --bad count.
+    #[arg(long)]
+    no_detect: bool,
+    /// Robust z-score beyond which deviation and high-frequency noise mask a channel.
+    #[arg(long, default_value_t = 5.0)]
+    z_threshold: f64,
+    /// Mask a channel whose largest |correlation| with the others is below this.
+    #[arg(long, default_value_t = 0.4)]
+    min_correlation: f64,
+    /// Mask a channel whose robust SD falls below this fraction of its session median.
+    #[arg(long, default_value_t = 0.1)]
+    flat_ratio: f64,
+    /// Mask a channel with at least this fraction of samples at the digital limits.
+    #[arg(long, default_value_t = 0.05)]
+    rail_fraction: f64,
+    /// Output folder: covs.npy (NaN where unobserved), mask.npy, mask.csv,
+    /// labels.csv (label, session per trial) and epochs.json (everything else).
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+    /// Also write every masked (epoch, channel) with its reason and measurements.
+    #[arg(long, value_name = "FILE.csv")]
+    mask_report: Option<PathBuf>,
+    /// Print the summary as JSON on stdout.
+    #[arg(long)]
+    json: bool,
+    /// No progress bar.
+    #[arg(long)]
+    quiet: bool,
+}
+
+fn parse_band(s: &str) -> Result<(f64, f64)> {
+    let parts: Vec<&str> = s.split(['-', ',', ':']).collect();
+    let bad = || {
+        LacunaError::InvalidOption(format!(
+            "--band {s:?}: write it as LOW-HIGH in Hz, e.g. 8-30"
+        ))
+    };
+    if parts.len() != 2 {
+        return Err(bad());
+    }
+    let lo: f64 = parts[0].trim().parse().map_err(|_| bad())?;
+    let hi: f64 = parts[1].trim().parse().map_err(|_| bad())?;
+    Ok((lo, hi))
+}
+
+fn session_name(path: &Path) -> String {
+    path.file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_else(|| path.display().to_string())
+}
+
+fn windowing_for(a: &ExtractArgs, events: Vec<Event>, source: &str) -> Result<Windowing> {
+    if let Some(w) = a.window {
+        return Ok(Windowing::Fixed {
+            length: w,
+            step: a.step.unwrap_or(w),
+        });
+    }
+    if events.is_empty() {
+        return Err(LacunaError::Unsupported(format!(
+            "{source}: no events (no --events file and no EDF+/BDF+ annotations); give --events or use fixed windows with --window"
+        )));
+    }
+    let length = match a.length {
+        Some(l) => l,
+        None => {
+            let d = events[0].duration;
+            if d > 0.0 && events.iter().all(|e| e.duration == d) {
+                d
+            } else {
+                return Err(LacunaError::InvalidOption(format!(
+                    "{source}: events have different or zero durations; give the epoch length with --length"
+                )));
+            }
+        }
+    };
+    Ok(Windowing::Events {
+        events,
+        offset: a.offset,
+        length,
+        keep: a.labels.clone(),
+    })
+}
+
+pub fn run(a: ExtractArgs) -> Result<i32> {
+    let estimator = Estimator::parse(&a.estimator).ok_or_else(|| {
+        LacunaError::InvalidOption(format!(
+            "--estimator {}: choose oas, ledoit-wolf or sample",
+            a.estimator
+        ))
+    })?;
+    let band = a.band.as_deref().map(parse_band).transpose()?;
+    let mut inputs = Vec::new();
+    if let Some(path) = &a.epochs {
+        let rate = a.rate.ok_or_else(|| {
+            LacunaError::InvalidOption("--epochs needs the sampling rate: --rate HZ".into())
+        })?;
+        let names = (!a.channels.is_empty()).then(|| a.channels.clone());
+        let (source, epochs) = read_npy_epochs(path, rate, names)?;
+        inputs.push(SessionInput {
+            session: session_name(path),
+            source: Box::new(source),
+            epochs,
+            isolated: true,
+        });
+    } else {
+        if a.recordings.is_empty() {
+            return Err(LacunaError::InvalidOption(
+                "give one or more recordings (EDF/BDF/CSV), or --epochs FILE.npy".into(),
+            ));
+        }
+        if !a.events.is_empty() && a.events.len() != a.recordings.len() {
+            return Err(LacunaError::InvalidOption(format!(
+                "{} --events files for {} recordings: give one per recording, in the same order",
+                a.events.len(),
+                a.recordings.len()
+            )));
+        }
+        for (k, path) in a.recordings.iter().enumerate() {
+            let is_csv = path
+                .extension()
+                .is_some_and(|e| e.eq_ignore_ascii_case("csv"));
+            let (source, annotations): (Box<dyn SignalSource + Send>, Vec<Event>) = if is_csv {
+                let rate = a.rate.ok_or_else(|| {
+                    LacunaError::InvalidOption(format!(
+                        "{}: a CSV recording carries no sampling rate; give it with --rate HZ",
+                        path.display()
+                    ))
+                })?;
+                (Box::new(read_signal_csv(path, rate)?), Vec::new())
+            } else {
+                let mut f = EdfFile::open(path)?;
+                let ann = f.annotations()?;
+                if !f.set_aside.is_empty() && !a.quiet {
+                    eprintln!(
+                        "note: {}: set aside (other sampling rate): {}",
+                        path.display(),
+                        f.set_aside
+                            .iter()
+                            .map(|(n, r)| format!("{n} ({r} Hz)"))
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    );
+                }
+                (Box::new(f), ann)
+            };
+            let events = match a.events.get(k) {
+                Some(e) => read_events_csv(e)?,
+                None => annotations,
+            };
+            let windowing = windowing_for(&a, events, &path.display().to_string())?;
+            let epochs: Vec<EpochSpec> = plan_epochs(source.as_ref(), &windowing)?;
+            inputs.push(SessionInput {
+                session: session_name(path),
+                source,
+                epochs,
+                isolated: false,
+            });
+        }
+    }
+    let n_epochs: usize = inputs.iter().map(|i| i.epochs.len()).sum();
+    let channel_names: Vec<String> = if a.channels.is_empty() || a.epochs.is_some() {
+        inputs[0].source.channel_names().to_vec()
+    } else {
+        a.channels.clone()
+    };
+    let user_mask = match &a.mask {
+        Some(path) => Some(read_mask(path, n_epochs, channel_names.len())?.observed),
+        None => None,
+    };
+    let opts = ExtractOptions {
+        band,
+        order: a.order,
+        estimator,
+        detect: DetectOptions {
+            enabled: !a.no_detect,
+            rail_fraction: a.rail_fraction,
+            flat_relative: a.flat_ratio,
+            z_threshold: a.z_threshold,
+            min_correlation: a.min_correlation,
+            ..DetectOptions::default()
+        },
+        channels: (!a.channels.is_empty() && a.epochs.is_none()).then(|| a.channels.clone()),
+        bad_channels: a.bad.clone(),
+        user_mask,
+        chunk_seconds: 30.0,
+    };
+    let sources: Vec<(String, String)> = inputs
+        .iter()
+        .map(|i| (i.session.clone(), i.source.name()))
+        .collect();
+    let show = !a.quiet && std::io::stderr().is_terminal();
+    let started = std::time::Instant::now();
+    let progress = |done: u64, total: u64| {
+        if show {
+            let frac = done as f64 / total.max(1) as f64;
+            let filled = (frac * 30.0).round() as usize;
+            eprint!(
+                "\rextracting [{}{}] {:>3.0}%  {:.1} M samples",
+                "#".repeat(filled),
+                " ".repeat(30 - filled.min(30)),
+                frac * 100.0,
+                done as f64 / 1e6
+            );
+        }
+    };
+    let out = extract(inputs, &opts, &progress)?;
+    if show {
+        eprintln!();
+    }
+    let elapsed = started.elapsed().as_secs_f64();
+    let set = out.trial_set()?;
+    write_outputs(&a, &out, &set, &sources, &opts, elapsed)?;
+    let summary = summary_json(&out, &set, elapsed);
+    if a.json {
+        println!("{}", serde_json::to_string_pretty(&summary).expect("JSON"));
+    } else if !a.quiet {
+        print_summary(&a, &out, &set);
+    }
+    Ok(0)
+}
+
+fn reason_counts(out: &Extraction) -> serde_json::Map<String, serde_json::Value> {
+    let mut m = serde_json::Map::new();
+    for r in Reason::ALL {
+        let n = out.masked.iter().filter(|c| c.reason == r).count();
+        if n > 0 {
+            m.insert(r.name().into(), json!(n));
+        }
+    }
+    m
+}
+
+fn summary_json(out: &Extraction, set: &lacuna::TrialSet, elapsed: f64) -> serde_json::Value {
+    let cells = out.epochs.len() * out.channels.len();
+    json!({
+        "epochs": out.epochs.len(),
+        "trials": set.len(),
+        "channels": out.channels.len(),
+        "masked_cells": out.masked.len(),
+        "masked_fraction": out.masked.len() as f64 / cells.max(1) as f64,
+        "reasons": reason_counts(out),
+        "empty_epochs": out.empty_epochs,
+        "set_aside": out.set_aside,
+        "notes": out.notes,
+        "seconds": elapsed,
+    })
+}
+
+fn print_summary(a: &ExtractArgs, out: &Extraction, set: &lacuna::TrialSet) {
+    let cells = out.epochs.len() * out.channels.len();
+    println!(
+        "{} epochs × {} channels → {} trials; {} of {} cells masked ({:.1}%)",
+        out.epochs.len(),
+        out.channels.len(),
+        set.len(),
+        out.masked.len(),
+        cells,
+        100.0 * out.masked.len() as f64 / cells.max(1) as f64
+    );
+    for (reason, n) in reason_counts(out) {
+        println!("  {reason:<22} {n}");
+    }
+    if !out.empty_epochs.is_empty() {
+        println!(
+            "  {} epoch(s) lost every channel and are not trials: {:?}",
+            out.empty_epochs.len(),
+            out.empty_epochs
+        );
+    }
+    for note in &out.notes {
+        println!("note: {note}");
+    }
+    println!(
+        "wrote {}/covs.npy, mask.npy, mask.csv, labels.csv, epochs.json",
+        a.out.display()
+    );
+    println!(
+        "next: lacuna mean --covs {0}/covs.npy --mask {0}/mask.csv --out mean.csv",
+        a.out.display()
+    );
+}
+
+fn write_outputs(
+    a: &ExtractArgs,
+    out: &Extraction,
+    set: &lacuna::TrialSet,
+    sources: &[(String, String)],
+    opts: &ExtractOptions,
+    elapsed: f64,
+) -> Result<()> {
+    // Everything is encoded before the first file is written.
+    let mut mask_csv = set.channels().join(",");
+    mask_csv.push('\n');
+    for row in set.mask().chunks(set.n_channels()) {
+        let r: Vec<&str> = row.iter().map(|&b| if b { "1" } else { "0" }).collect();
+        mask_csv.push_str(&r.join(","));
+        mask_csv.push('\n');
+    }
+    let mut labels = String::from("label,session\n");
+    let kept: Vec<usize> = (0..out.epochs.len())
+        .filter(|e| !out.empty_epochs.contains(e))
+        .collect();
+    for &e in &kept {
+        let info = &out.epochs[e];
+        labels.push_str(&format!(
+            "{},{}\n",
+            info.label.clone().unwrap_or_default(),
+            info.session
+        ));
+    }
+    let p = out.channels.len();
+    let epochs_json: Vec<serde_json::Value> = out
+        .epochs
+        .iter()
+        .enumerate()
+        .map(|(e, info)| {
+            let masked: Vec<serde_json::Value> = out
+                .masked
+                .iter()
+                .filter(|m| m.epoch == e)
+                .map(|m| json!({"channel": m.channel, "reason": m.reason.name()}))
+                .collect();
+            json!({
+                "epoch": e,
+                "trial": kept.iter().position(|&k| k == e),
+                "session": info.session,
+                "onset_s": info.onset,
+                "duration_s": info.duration,
+                "label": info.label,
+                "observed_channels": info.observed,
+                "shrinkage": info.shrinkage,
+                "rank": info.rank,
+                "masked": masked,
+            })
+        })
+        .collect();
+    let meta = json!({
+        "lacuna_epochs_version": "1",
+        "lacuna_version": env!("CARGO_PKG_VERSION"),
+        "caution": "Research software, not a medical device: results inform analysis; they do not diagnose.",
+        "channels": out.channels,
+        "sessions": sources.iter().map(|(s, f)| json!({"session": s, "source": f})).collect::<Vec<_>>(),
+        "sampling_rates_hz": out.sampling_rates,
+        "band_hz": opts.band.map(|(l, h)| vec![l, h]),
+        "filter": opts.band.map(|_| format!("Butterworth order {} band-pass, forward-backward (zero phase)", opts.order)),
+        "estimator": opts.estimator.name(),
+        "detection": opts.detect,
+        "user_bad_channels": opts.bad_channels,
+        "user_mask": a.mask.as_ref().map(|m| m.display().to_string()),
+        "set_aside": out.set_aside,
+        "notes": out.notes,
+        "summary": summary_json(out, set, elapsed),
+        "epochs": epochs_json,
+        "masked_per_channel": out.channels.iter().map(|c| json!({
+            "channel": c,
+            "masked": out.masked.iter().filter(|m| &m.channel == c).count(),
+        })).collect::<Vec<_>>(),
+        "cells": out.epochs.len() * p,
+    });
+    let report = a.mask_report.as_ref().map(|_| {
+        let mut s = String::from(
+            "epoch,session,onset_s,channel,reason,non_finite,rail_fraction,robust_sd,noise_ratio,max_correlation\n",
+        );
+        for m in &out.masked {
+            let info = &out.epochs[m.epoch];
+            s.push_str(&format!(
+                "{},{},{},{},{},{},{},{},{},{}\n",
+                m.epoch,
+                info.session,
+                info.onset,
+                m.channel,
+                m.reason.name(),
+                m.stats.non_finite,
+                m.stats.rail_fraction,
+                m.stats.robust_sd,
+                m.stats.noise_ratio.map_or(String::new(), |v| v.to_string()),
+                m.stats.max_correlation
+            ));
+        }
+        s
+    });
+    std::fs::create_dir_all(&a.out).map_err(|source| LacunaError::Write {
+        path: a.out.clone(),
+        source,
+    })?;
+    write_atomic(&a.out.join("covs.npy"), &encode_stack_with_nan(set))?;
+    write_atomic(&a.out.join("mask.npy"), &encode_mask(set))?;
+    write_atomic(&a.out.join("mask.csv"), mask_csv.as_bytes())?;
+    write_atomic(&a.out.join("labels.csv"), labels.as_bytes())?;
+    write_atomic(
+        &a.out.join("epochs.json"),
+        serde_json::to_string_pretty(&meta)
+            .expect("JSON")
+            .as_bytes(),
+    )?;
+    if let (Some(path), Some(text)) = (&a.mask_report, report) {
+        write_atomic(path, text.as_bytes())?;
+    }
+    Ok(())
+}
