@@ -5,6 +5,8 @@
 //! Run: `cargo run --release --bin lacuna-bench -- --help`. Results and the
 //! machine they came from are written down in docs/performance.md.
 
+mod ingest;
+
 use std::path::PathBuf;
 use std::process::Command;
 use std::time::Instant;
@@ -23,6 +25,7 @@ struct Args {
     sizes: Vec<(usize, usize)>,
     reference: Option<String>,
     threads: Vec<usize>,
+    file: Option<PathBuf>,
 }
 
 fn parse() -> Args {
@@ -31,6 +34,7 @@ fn parse() -> Args {
         sizes: vec![],
         reference: None,
         threads: vec![1, 2],
+        file: None,
     };
     let argv: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
@@ -53,11 +57,17 @@ fn parse() -> Args {
                 a.threads = argv[i + 1].split(',').map(|t| t.parse().unwrap()).collect();
                 i += 1;
             }
+            "--file" => {
+                a.file = Some(PathBuf::from(&argv[i + 1]));
+                i += 1;
+            }
             "--help" | "-h" => {
                 println!(
-                    "lacuna-bench [--mode karcher|masked] [--size NxP]... [--threads 1,2] [--reference PYTHON]\n\n\
+                    "lacuna-bench [--mode karcher|masked|kernels|ingest] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--file REC.bdf]\n\n\
                      karcher: full-data Karcher mean, default sizes 100x{{8,32,64,128}} and 10000x{{8,32,64,128}}\n\
                      masked:  airm-observed with 20% of trials missing 1-8 channels, default 10000x64\n\
+                     ingest:  a simulated 1-hour, 64-channel, 512 Hz BDF (generated once into --file, default in the temp folder)\n\
+                              read, then 2 s epochs with 8-30 Hz band-pass, detection and OAS; throughput and peak memory\n\
                      --reference PYTHON runs tests/reference/bench_reference.py with that interpreter on the same data\n\
                      (needs numpy/scipy: pip install -r tests/reference/requirements.txt)"
                 );
@@ -189,6 +199,21 @@ fn kernels() {
 
 fn main() {
     let args = parse();
+    match args.mode.as_str() {
+        "ingest" => {
+            ingest::run(args.file.clone(), args.reference.as_deref(), &args.threads);
+            return;
+        }
+        "ingest-generate" => {
+            ingest::generate(args.file.as_deref().expect("--file"));
+            return;
+        }
+        "ingest-measure" => {
+            ingest::measure(args.file.as_deref().expect("--file"));
+            return;
+        }
+        _ => {}
+    }
     if args.mode == "kernels" {
         kernels();
         return;

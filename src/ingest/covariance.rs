@@ -71,16 +71,26 @@ pub struct Moments {
 impl Moments {
     /// Moments of `x` (p × T, one row per channel).
     pub fn of(x: &Mat, with_fourth: bool) -> Moments {
-        let t = x.ncols();
-        let mut xc = x.clone();
-        for mut row in xc.row_iter_mut() {
-            let m = row.iter().sum::<f64>() / t as f64;
-            row.add_scalar_mut(-m);
+        Moments::of_columns(&x.transpose(), with_fourth)
+    }
+
+    /// Moments of `xt` (T × p, one column per channel: the layout in which
+    /// each channel's samples are contiguous, so centring and the products
+    /// XᵀX run on contiguous memory).
+    pub fn of_columns(xt: &Mat, with_fourth: bool) -> Moments {
+        let t = xt.nrows();
+        let mut xc = xt.clone();
+        for mut col in xc.column_iter_mut() {
+            let m = col.iter().sum::<f64>() / t as f64;
+            col.add_scalar_mut(-m);
         }
-        let s1 = crate::spd::symmetrize(&(&xc * xc.transpose() / t as f64));
+        // Through the transpose: nalgebra multiplies general products with
+        // a blocked GEMM, while tr_mul takes one dot product per entry.
+        let xct = xc.transpose();
+        let s1 = crate::spd::symmetrize(&(&xct * &xc / t as f64));
         let q = with_fourth.then(|| {
             let x2 = xc.map(|v| v * v);
-            &x2 * x2.transpose()
+            x2.transpose() * &x2
         });
         Moments { s1, q, samples: t }
     }

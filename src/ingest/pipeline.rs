@@ -528,28 +528,40 @@ fn measure_epoch(
                 && stats[c].robust_sd > 1e-6 * median_sd
         })
         .collect();
-    let z = Mat::from_fn(eligible.len(), len, |r, t| {
-        let sig = &signals[eligible[r]];
-        sig.low.as_ref().unwrap_or(&sig.detect)[s + t]
-    });
-    let mut z = z;
-    for mut row in z.row_iter_mut() {
-        let m = row.iter().sum::<f64>() / len as f64;
-        row.add_scalar_mut(-m);
-        let n = row.norm();
+    // One column per channel (contiguous copies), unit-norm after centring.
+    let mut z = Mat::from_iterator(
+        len,
+        eligible.len(),
+        eligible.iter().flat_map(|&c| {
+            let sig = &signals[c];
+            sig.low.as_ref().unwrap_or(&sig.detect)[s..s + len]
+                .iter()
+                .copied()
+        }),
+    );
+    for mut col in z.column_iter_mut() {
+        let m = col.iter().sum::<f64>() / len as f64;
+        col.add_scalar_mut(-m);
+        let n = col.norm();
         if n > 0.0 {
-            row /= n;
+            col /= n;
         }
     }
-    let corr = &z * z.transpose();
+    let corr = z.transpose() * &z;
     for (a, &c) in eligible.iter().enumerate() {
         stats[c].max_correlation = (0..eligible.len())
             .filter(|&b| b != a)
             .map(|b| corr[(a, b)].abs())
             .fold(0.0, f64::max);
     }
-    let y = Mat::from_fn(p, len, |c, t| signals[c].analysis[s + t]);
-    (stats, Moments::of(&y, lw))
+    let y = Mat::from_iterator(
+        len,
+        p,
+        signals
+            .iter()
+            .flat_map(|sig| sig.analysis[s..s + len].iter().copied()),
+    );
+    (stats, Moments::of_columns(&y, lw))
 }
 
 fn decide_session(
