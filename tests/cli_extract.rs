@@ -399,3 +399,84 @@ fn bad_recordings_are_refused() {
         &["ev2.csv", "row 2", "onset"],
     );
 }
+
+// A continuous CSV recording with an events CSV, through the whole path;
+// an EDF file with a channel at another rate reports it as set aside.
+#[test]
+fn csv_recording_with_events_and_set_aside_channels() {
+    use lacuna::simulate::rng::Rng;
+    let d = Dir::new("csv");
+    let mut rng = Rng::new(3);
+    let (fs, secs, p) = (100.0, 30.0, 5);
+    let n = (fs * secs) as usize;
+    let mut text = String::from("A,B,C,D,E\n");
+    let shared: Vec<f64> = (0..n).map(|_| rng.normal()).collect();
+    for (i, sh) in shared.iter().enumerate() {
+        let t = i as f64 / fs;
+        let row: Vec<String> = (0..p)
+            .map(|c| {
+                let v = 10.0 * (2.0 * std::f64::consts::PI * 10.0 * t + c as f64).sin()
+                    + 5.0 * sh
+                    + rng.normal();
+                format!("{v:.5}")
+            })
+            .collect();
+        text.push_str(&row.join(","));
+        text.push('\n');
+    }
+    let rec = d.write("run.csv", text.as_bytes());
+    let mut ev = String::from("onset,duration,label\n");
+    for k in 0..12 {
+        ev.push_str(&format!(
+            "{},2,{}\n",
+            2.0 + 2.0 * k as f64,
+            if k % 2 == 0 { "left" } else { "right" }
+        ));
+    }
+    let ev = d.write("events.csv", ev.as_bytes());
+    let (code, out, err) = lacuna(&[
+        "extract",
+        s(&rec),
+        "--rate",
+        "100",
+        "--events",
+        s(&ev),
+        "--band",
+        "5-20",
+        "--labels",
+        "left",
+        "--out",
+        s(&d.path("t")),
+        "--json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(v["epochs"], 6, "{v}");
+    let labels = std::fs::read_to_string(d.path("t/labels.csv")).unwrap();
+    assert_eq!(labels.lines().filter(|l| l.starts_with("left,")).count(), 6);
+    // The pyedflib fixture has AUX at 32 Hz beside four 256 Hz channels.
+    let fx = format!(
+        "{}/tests/reference/fixtures/sines.edf",
+        env!("CARGO_MANIFEST_DIR")
+    );
+    let (code, out, err) = lacuna(&[
+        "extract",
+        &fx,
+        "--window",
+        "2",
+        "--no-detect",
+        "--out",
+        s(&d.path("t2")),
+        "--json",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(v["epochs"], 5);
+    assert!(
+        v["set_aside"][0]
+            .as_str()
+            .unwrap()
+            .starts_with("AUX (32 Hz"),
+        "{v}"
+    );
+}

@@ -517,6 +517,12 @@ impl SignalSource for EdfFile {
         }
         Ok(())
     }
+    fn set_aside(&self) -> Vec<String> {
+        self.set_aside
+            .iter()
+            .map(|(name, rate)| format!("{name} ({rate} Hz, not the dominant rate)"))
+            .collect()
+    }
     fn reopen(&self) -> Result<Box<dyn SignalSource + Send>> {
         let file = File::open(&self.path).map_err(|source| LacunaError::Read {
             path: self.path.clone(),

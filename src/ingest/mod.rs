@@ -44,6 +44,11 @@ pub trait SignalSource {
     fn read(&mut self, start: usize, end: usize, out: &mut [Vec<f64>]) -> Result<()>;
     /// An independent handle on the same data.
     fn reopen(&self) -> Result<Box<dyn SignalSource + Send>>;
+    /// Signals of the file not offered as channels, with why (e.g. another
+    /// sampling rate).
+    fn set_aside(&self) -> Vec<String> {
+        Vec::new()
+    }
 }
 
 /// A recording held in memory (continuous CSV input, tests, the simulator).

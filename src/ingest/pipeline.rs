@@ -208,8 +208,14 @@ pub fn extract(
     };
     for (input, sel) in inputs.into_iter().zip(&selections) {
         for (k, n) in input.source.channel_names().iter().enumerate() {
-            if !sel.contains(&k) && !out.set_aside.contains(n) {
-                out.set_aside.push(n.clone());
+            let why = format!("{n} (not selected)");
+            if !sel.contains(&k) && !out.set_aside.contains(&why) {
+                out.set_aside.push(why);
+            }
+        }
+        for why in input.source.set_aside() {
+            if !out.set_aside.contains(&why) {
+                out.set_aside.push(why);
             }
         }
         let offset = out.epochs.len();
