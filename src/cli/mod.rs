@@ -12,9 +12,10 @@ use clap::{Parser, Subcommand};
 
 /// Riemannian means of channel covariance matrices when trials lose channels.
 ///
-/// lacuna reads per-trial covariance matrices (NPY stack) and a mask of which
-/// channels each trial observed, and averages them on the manifold of SPD
-/// matrices. The flagship scheme, airm-observed, fits one full-size mean to
+/// lacuna reads recordings (EDF/BDF, CSV, NPY epochs) and finds which
+/// channels each epoch lost, or reads per-trial covariance matrices (NPY
+/// stack) with a mask of which channels each trial observed, and averages
+/// them on the manifold of SPD matrices. The flagship scheme, airm-observed, fits one full-size mean to
 /// each trial's observed sub-block only: no filling, no diagonal loading.
 ///
 /// Research software, not a medical device: results inform analysis; they do
@@ -25,7 +26,7 @@ use clap::{Parser, Subcommand};
     version,
     about,
     long_about,
-    after_help = "Start with the demo:\n  lacuna mean --covs demo-data/covs.npy --mask demo-data/mask.csv --out mean.csv --report report.json\n\nExit codes: 0 ok; 1 could not write output; 2 usage error; 3 invalid input (nothing written); 4 numerical failure (mean written, report says why)."
+    after_help = "Start with the demo:\n  lacuna extract demo-data/recording/session-*.edf --offset 0.5 --length 2 --band 8-30 --out trials\n  lacuna mean --covs trials/covs.npy --mask trials/mask.csv --out mean.csv --report report.json\n\nExit codes: 0 ok; 1 could not write output; 2 usage error; 3 invalid input (nothing written); 4 numerical failure (mean written, report says why)."
 )]
 pub struct Cli {
     #[command(subcommand)]
