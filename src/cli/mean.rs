@@ -58,6 +58,17 @@ pub struct MeanArgs {
     /// α for --scheme shrinkage: every trial becomes (1−α)·C + α·(trace/p)·I.
     #[arg(long, default_value_t = 0.1)]
     shrinkage: f64,
+    /// Samples per trial, when known: --scheme shrinkage then uses each
+    /// trial's OAS intensity instead of the fixed --shrinkage.
+    #[arg(long, value_name = "T")]
+    samples: Option<usize>,
+    /// Rank of --scheme subspace (default: 99% of the available-case trace,
+    /// capped at the fewest channels any trial observed).
+    #[arg(long)]
+    rank: Option<usize>,
+    /// Electrode positions for --scheme spherical-spline: CSV `channel,x,y,z`.
+    #[arg(long, value_name = "FILE.csv")]
+    positions: Option<PathBuf>,
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
     drop_unobserved: bool,
@@ -132,6 +143,16 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         observer,
         loading: a.loading,
         shrinkage: a.shrinkage,
+        samples: a.samples,
+        rank: a.rank,
+        positions: match &a.positions {
+            Some(path) => Some(Arc::new(lacuna::trials::io::read_positions(
+                path,
+                set.channels(),
+            )?)),
+            None => None,
+        },
+        warm_start: None,
     };
     let result = scheme.average(&set, &options)?;
     if show_progress {

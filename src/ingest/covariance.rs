@@ -154,6 +154,20 @@ pub fn estimate(x: &Mat, estimator: Estimator) -> CovEstimate {
     Moments::of(x, estimator == Estimator::LedoitWolf).estimate(&all, estimator)
 }
 
+/// The OAS intensity for a covariance estimate `s` from `samples` samples
+/// (the formula above, with S₁ taken as `s`).
+pub fn oas_intensity(s: &Mat, samples: usize) -> f64 {
+    let p = s.nrows() as f64;
+    let tr = s.trace();
+    let fro2 = s.norm_squared();
+    let den = (samples as f64 + 1.0) * (fro2 - tr * tr / p);
+    if den <= 0.0 {
+        1.0
+    } else {
+        ((fro2 + tr * tr) / den).min(1.0)
+    }
+}
+
 /// Eigenvalues above p · ε · λ_max count toward the rank (the numpy
 /// matrix_rank convention, applied to a symmetric matrix).
 pub fn numerical_rank(s: &Mat) -> usize {

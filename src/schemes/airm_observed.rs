@@ -294,7 +294,12 @@ fn perturbed(x: &Mat, rng: &mut Rng, sigma: f64) -> Mat {
 
 impl AirmObserved {
     fn starting_points(&self, set: &TrialSet, options: &SchemeOptions) -> Vec<(String, Mat)> {
-        let mut starts = vec![(options.init.name().to_string(), options.init.start(set))];
+        let mut starts = match &options.warm_start {
+            Some(x) if x.nrows() == set.n_channels() => {
+                vec![("given warm start".to_string(), (**x).clone())]
+            }
+            _ => vec![(options.init.name().to_string(), options.init.start(set))],
+        };
         for rule in [
             InitRule::AvailableCase,
             InitRule::Diagonal,

@@ -9,7 +9,8 @@
 //! - `diagonal-loading`: unobserved rows/columns set to zero, then
 //!   `C + λ·(trace C / p)·I`, then the Karcher mean;
 //! - `shrinkage`: unobserved rows/columns set to zero and their variances to
-//!   the trial's mean observed variance, then `(1−α) C + α (trace C / p) I`,
+//!   the trial's mean observed variance, then `(1−α) C + α (trace C / p) I`
+//!   (α fixed, or each trial's OAS intensity when the sample count is known),
 //!   then the Karcher mean.
 //!
 //! Every note says what was dropped, clipped or filled.
@@ -216,10 +217,16 @@ impl AveragingScheme for Shrinkage {
             )));
         }
         let p = set.n_channels();
+        let mut intensities = Vec::with_capacity(set.len());
         let mats = set
             .trials()
             .iter()
             .map(|t| {
+                let alpha = match options.samples {
+                    Some(n) => crate::ingest::covariance::oas_intensity(&t.block, n),
+                    None => alpha,
+                };
+                intensities.push(alpha);
                 let mut m = zero_filled(t, p);
                 let mean_var = t.block.trace() / t.observed.len() as f64;
                 for c in 0..p {
@@ -235,9 +242,18 @@ impl AveragingScheme for Shrinkage {
                 s
             })
             .collect();
-        let note = format!(
-            "unobserved channels filled with zero covariance and the trial's mean observed variance; every trial shrunk with α = {alpha} towards (trace/p)·I"
-        );
+        let note = match options.samples {
+            None => format!(
+                "unobserved channels filled with zero covariance and the trial's mean observed variance; every trial shrunk with α = {alpha} towards (trace/p)·I"
+            ),
+            Some(n) => format!(
+                "unobserved channels filled with zero covariance and the trial's mean observed variance; each trial shrunk towards (trace/p)·I with its OAS intensity for {n} samples (median {:.3})",
+                {
+                    let mut v = intensities.clone();
+                    crate::ingest::detect::quantile_in_place(&mut v, 0.5)
+                }
+            ),
+        };
         karcher_of(
             set,
             mats,

@@ -12,14 +12,24 @@
 mod airm_observed;
 mod alternatives;
 mod closed_form;
+mod common_channels;
+mod em;
 mod karcher;
+mod spherical_spline;
+mod subspace;
 
 use std::sync::Arc;
 
 pub use airm_observed::{AirmObserved, InitRule, MaskedKarcherProblem};
 pub use alternatives::{AvailableCase, CompleteTrials, DiagonalLoading, Shrinkage, pairwise_mean};
 pub use closed_form::{Arithmetic, Harmonic, LogEuclidean};
+pub use common_channels::CommonChannels;
+pub use em::GaussianEm;
 pub use karcher::Karcher;
+pub use spherical_spline::{
+    SphericalSpline, spline_g as spherical_spline_g, spline_interpolation_matrix,
+};
+pub use subspace::Subspace;
 
 use crate::error::Result;
 use crate::solve::{IterRecord, Solution, StopReason, StopRule};
@@ -46,6 +56,16 @@ pub struct SchemeOptions {
     pub loading: f64,
     /// α of `shrinkage`, in (0, 1].
     pub shrinkage: f64,
+    /// Samples per trial, when known: `shrinkage` then takes each trial's
+    /// OAS intensity instead of the fixed α.
+    pub samples: Option<usize>,
+    /// Rank of `subspace` (None = the documented rule).
+    pub rank: Option<usize>,
+    /// Electrode positions on the unit sphere, one per channel (for `spherical-spline`).
+    pub positions: Option<Arc<Vec<[f64; 3]>>>,
+    /// A starting point for `airm-observed` (re-solves after small changes
+    /// to the data: leave-one-channel-out, bootstrap).
+    pub warm_start: Option<Arc<Mat>>,
 }
 
 impl Default for SchemeOptions {
@@ -58,6 +78,10 @@ impl Default for SchemeOptions {
             observer: None,
             loading: 1e-2,
             shrinkage: 0.1,
+            samples: None,
+            rank: None,
+            positions: None,
+            warm_start: None,
         }
     }
 }
@@ -71,6 +95,10 @@ impl std::fmt::Debug for SchemeOptions {
             .field("seed", &self.seed)
             .field("loading", &self.loading)
             .field("shrinkage", &self.shrinkage)
+            .field("samples", &self.samples)
+            .field("rank", &self.rank)
+            .field("positions", &self.positions.as_ref().map(|p| p.len()))
+            .field("warm_start", &self.warm_start.is_some())
             .finish()
     }
 }
@@ -122,6 +150,9 @@ pub struct Diagnostics {
     pub starts: Vec<StartOutcome>,
     /// Whether all starts reached the same mean (None when only one start).
     pub starts_agree: Option<bool>,
+    /// Channels the mean actually estimates (None = all). Entries outside
+    /// are placeholders; comparisons use the estimated block only.
+    pub estimated_channels: Option<Vec<usize>>,
 }
 
 impl Diagnostics {
@@ -142,6 +173,7 @@ impl Diagnostics {
             completed_pairs: 0,
             starts: Vec::new(),
             starts_agree: None,
+            estimated_channels: None,
         }
     }
 
@@ -193,6 +225,10 @@ pub fn all_schemes() -> Vec<Box<dyn AveragingScheme>> {
         Box::new(AvailableCase),
         Box::new(DiagonalLoading),
         Box::new(Shrinkage),
+        Box::new(CommonChannels),
+        Box::new(Subspace),
+        Box::new(GaussianEm),
+        Box::new(SphericalSpline),
         Box::new(Karcher),
         Box::new(LogEuclidean),
         Box::new(Arithmetic),

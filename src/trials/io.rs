@@ -461,3 +461,68 @@ pub fn encode_mask(set: &TrialSet) -> Vec<u8> {
     let m: Vec<u8> = set.mask().iter().map(|&b| b as u8).collect();
     npy::encode_u8(&[set.len(), set.n_channels()], &m)
 }
+
+/// Reads electrode positions (CSV with a header `channel,x,y,z`) and returns
+/// them in the order of `channels`, scaled to the unit sphere. Every channel
+/// must be listed; extra rows are ignored.
+pub fn read_positions(path: &Path, channels: &[String]) -> Result<Vec<[f64; 3]>> {
+    let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let mut found: std::collections::HashMap<String, [f64; 3]> = Default::default();
+    for (k, line) in text.lines().enumerate().skip(1) {
+        let row = k + 1;
+        if line.trim().is_empty() {
+            continue;
+        }
+        let cells: Vec<&str> = line.split(',').map(str::trim).collect();
+        if cells.len() < 4 {
+            return Err(format_err(
+                path,
+                format!(
+                    "row {row}: expected channel,x,y,z, found {} cells",
+                    cells.len()
+                ),
+            ));
+        }
+        let mut v = [0.0; 3];
+        for d in 0..3 {
+            v[d] = cells[d + 1]
+                .parse::<f64>()
+                .ok()
+                .filter(|x| x.is_finite())
+                .ok_or_else(|| {
+                    format_err(
+                        path,
+                        format!(
+                            "row {row}, column {} (channel {}): {:?} is not a number",
+                            d + 2,
+                            cells[0],
+                            cells[d + 1]
+                        ),
+                    )
+                })?;
+        }
+        let norm = (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt();
+        if !(norm > 0.0) {
+            return Err(format_err(
+                path,
+                format!("row {row} (channel {}): position at the origin", cells[0]),
+            ));
+        }
+        found.insert(
+            cells[0].to_string(),
+            [v[0] / norm, v[1] / norm, v[2] / norm],
+        );
+    }
+    channels
+        .iter()
+        .map(|c| {
+            found
+                .get(c)
+                .copied()
+                .ok_or_else(|| format_err(path, format!("no position for channel {c}")))
+        })
+        .collect()
+}

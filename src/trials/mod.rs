@@ -313,6 +313,28 @@ impl TrialSet {
         Ok(out)
     }
 
+    /// The trials at `idx` (in that order; repeats allowed, as in a
+    /// bootstrap), with their weights, labels and sessions.
+    pub fn select_trials(&self, idx: &[usize]) -> Result<TrialSet> {
+        let trials = idx.iter().map(|&i| self.trials[i].clone()).collect();
+        let weights = idx.iter().map(|&i| self.weights[i]).collect();
+        let mut out = TrialSet::new(
+            self.channels.clone(),
+            trials,
+            Some(weights),
+            "selected trials",
+        )?;
+        out.labels = self
+            .labels
+            .as_ref()
+            .map(|l| idx.iter().map(|&i| l[i].clone()).collect());
+        out.sessions = self
+            .sessions
+            .as_ref()
+            .map(|s| idx.iter().map(|&i| s[i].clone()).collect());
+        Ok(out)
+    }
+
     /// Builds a set of complete trials from full matrices (all channels observed).
     pub fn from_full(
         channels: Vec<String>,
