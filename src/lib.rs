@@ -24,6 +24,7 @@ pub mod error;
 pub mod ingest;
 pub mod report;
 pub mod schemes;
+pub mod select;
 pub mod simulate;
 pub mod solve;
 pub mod spd;

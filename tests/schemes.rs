@@ -118,8 +118,9 @@ fn spherical_spline_needs_positions_and_gives_spd() {
             [r * phi.cos(), r * phi.sin(), z]
         })
         .collect();
+    let names = lacuna::trials::default_channel_names(p);
     let opts = SchemeOptions {
-        positions: Some(std::sync::Arc::new(pos)),
+        positions: Some(std::sync::Arc::new(names.into_iter().zip(pos).collect())),
         ..SchemeOptions::default()
     };
     let r = SphericalSpline.average(&set, &opts).unwrap();

@@ -146,10 +146,10 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         samples: a.samples,
         rank: a.rank,
         positions: match &a.positions {
-            Some(path) => Some(Arc::new(lacuna::trials::io::read_positions(
-                path,
+            Some(path) => Some(Arc::new(super::positions_by_name(
+                lacuna::trials::io::read_positions(path, set.channels())?,
                 set.channels(),
-            )?)),
+            ))),
             None => None,
         },
         warm_start: None,

@@ -4,6 +4,7 @@
 //! calls and maps [`lacuna::LacunaError`] to a message and an exit code
 //! (0 ok, 1 output failure, 2 usage, 3 invalid input, 4 numerical failure).
 
+mod compare;
 mod extract;
 mod mean;
 mod synth;
@@ -39,10 +40,21 @@ enum Command {
     Extract(extract::ExtractArgs),
     /// Average a covariance stack with one scheme and write the mean.
     Mean(mean::MeanArgs),
+    /// Run every scheme on the same trials, rank them with evidence, and
+    /// report each channel's contribution.
+    Compare(compare::CompareArgs),
     /// List the averaging schemes and what each assumes.
     Schemes,
     /// Generate simulated data with known truth: covariance stacks or raw recordings.
     Synth(synth::SynthArgs),
+}
+
+/// Electrode positions keyed by channel name.
+fn positions_by_name(
+    positions: Vec<[f64; 3]>,
+    channels: &[String],
+) -> std::collections::BTreeMap<String, [f64; 3]> {
+    channels.iter().cloned().zip(positions).collect()
 }
 
 /// Runs the command line; returns the process exit code.
@@ -57,6 +69,7 @@ pub fn run() -> i32 {
     let outcome = match cli.command {
         Command::Extract(args) => extract::run(args),
         Command::Mean(args) => mean::run(args),
+        Command::Compare(args) => compare::run(args),
         Command::Schemes => {
             for s in lacuna::all_schemes() {
                 let missing = if s.handles_missing() {

@@ -9,3 +9,5 @@ pub use completion::max_det_completion;
 pub use identifiability::{Identifiability, identifiability};
 pub mod summary;
 pub use summary::{MeanSummary, summarize};
+pub mod contribution;
+pub use contribution::{ChannelContribution, ContributionOptions, contributions};

@@ -61,8 +61,9 @@ pub struct SchemeOptions {
     pub samples: Option<usize>,
     /// Rank of `subspace` (None = the documented rule).
     pub rank: Option<usize>,
-    /// Electrode positions on the unit sphere, one per channel (for `spherical-spline`).
-    pub positions: Option<Arc<Vec<[f64; 3]>>>,
+    /// Electrode positions on the unit sphere by channel name (for
+    /// `spherical-spline`; by name so that channel subsets keep working).
+    pub positions: Option<Arc<std::collections::BTreeMap<String, [f64; 3]>>>,
     /// A starting point for `airm-observed` (re-solves after small changes
     /// to the data: leave-one-channel-out, bootstrap).
     pub warm_start: Option<Arc<Mat>>,

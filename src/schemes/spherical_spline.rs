@@ -93,12 +93,15 @@ impl AveragingScheme for SphericalSpline {
                 "spherical-spline needs electrode positions (--positions FILE.csv with channel,x,y,z)".into(),
             )
         })?;
-        if positions.len() != p {
-            return Err(LacunaError::Unsupported(format!(
-                "{} electrode positions for {p} channels",
-                positions.len()
-            )));
-        }
+        let positions: Vec<[f64; 3]> = set
+            .channels()
+            .iter()
+            .map(|c| {
+                positions.get(c).copied().ok_or_else(|| {
+                    LacunaError::Unsupported(format!("spherical-spline: no electrode position for channel {c}"))
+                })
+            })
+            .collect::<Result<_>>()?;
         let mut cache: std::collections::HashMap<Vec<usize>, Mat> = Default::default();
         let mut mats = Vec::with_capacity(set.len());
         let mut interpolated = 0usize;
@@ -111,7 +114,7 @@ impl AveragingScheme for SphericalSpline {
             let m: Vec<usize> = (0..p).filter(|c| o.binary_search(c).is_err()).collect();
             interpolated += m.len();
             if !cache.contains_key(o) {
-                let w = spline_interpolation_matrix(positions, o, &m).ok_or_else(|| {
+                let w = spline_interpolation_matrix(&positions, o, &m).ok_or_else(|| {
                     LacunaError::Numerical(
                         "spherical-spline: singular interpolation system (coincident electrodes?)"
                             .into(),

@@ -526,3 +526,41 @@ pub fn read_positions(path: &Path, channels: &[String]) -> Result<Vec<[f64; 3]>>
         })
         .collect()
 }
+
+/// Reads trial labels from CSV: a header, then one row per trial. The
+/// column named `label` (or the first column) is the label; a column named
+/// `session`, when present, gives the session.
+pub fn read_labels(path: &Path, n: usize) -> Result<(Vec<String>, Option<Vec<String>>)> {
+    let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let mut lines = text.lines();
+    let header: Vec<String> = lines
+        .next()
+        .unwrap_or("")
+        .split(',')
+        .map(|h| h.trim().to_ascii_lowercase())
+        .collect();
+    let label_col = header.iter().position(|h| h == "label").unwrap_or(0);
+    let session_col = header.iter().position(|h| h == "session");
+    let mut labels = Vec::new();
+    let mut sessions = Vec::new();
+    for line in lines {
+        if line.trim().is_empty() {
+            continue;
+        }
+        let cells: Vec<&str> = line.split(',').map(str::trim).collect();
+        labels.push(cells.get(label_col).copied().unwrap_or("").to_string());
+        if let Some(s) = session_col {
+            sessions.push(cells.get(s).copied().unwrap_or("").to_string());
+        }
+    }
+    if labels.len() != n {
+        return Err(format_err(
+            path,
+            format!("{} label rows for {n} trials", labels.len()),
+        ));
+    }
+    Ok((labels, session_col.map(|_| sessions)))
+}

@@ -1,0 +1,432 @@
+//! `lacuna compare`: every scheme on the same trial set, side by side, the
+//! evidence for choosing one, and per-channel contributions.
+
+use std::io::IsTerminal;
+use std::path::PathBuf;
+use std::sync::Arc;
+use std::time::Instant;
+
+use clap::Args;
+use lacuna::diagnose::{ContributionOptions, contributions, identifiability};
+use lacuna::schemes::MeanResult;
+use lacuna::select::{
+    SelectOptions, decoding, default_candidates, held_out_fit, recommend, simulated_dropout,
+};
+use lacuna::spd::distance::airm_distance;
+use lacuna::spd::{Mat, condition_number, log_det};
+use lacuna::trials::TrialSet;
+use lacuna::trials::io::{encode_matrix, load_trial_set, read_labels, read_positions};
+use lacuna::trials::npy::write_atomic;
+use lacuna::{LacunaError, Result, SchemeOptions};
+use rayon::prelude::*;
+use serde_json::json;
+
+#[derive(Args, Debug)]
+#[command(after_help = "Example (after `lacuna extract … --out trials`):
+  lacuna compare --covs trials/covs.npy --mask trials/mask.csv --labels trials/labels.csv \\
+                 --positions demo-data/recording/positions.csv --out comparison
+
+Writes comparison/means/<scheme>.npy and .csv, comparison.csv, distances.csv,
+validation.csv, contributions.csv and compare.json.")]
+pub struct CompareArgs {
+    /// Covariance stack: NPY float64 (N, p, p), NaN where unobserved allowed.
+    #[arg(long, value_name = "STACK.npy")]
+    covs: PathBuf,
+    /// Observation mask (NPY or CSV with channel names); see `lacuna mean --help`.
+    #[arg(long, value_name = "MASK")]
+    mask: Option<PathBuf>,
+    /// Trial labels (CSV with a `label` column; `session` optional) for the decoding check.
+    #[arg(long, value_name = "LABELS.csv")]
+    labels: Option<PathBuf>,
+    /// Electrode positions (CSV `channel,x,y,z`) for spherical-spline.
+    #[arg(long, value_name = "FILE.csv")]
+    positions: Option<PathBuf>,
+    /// Samples per trial, when known (shrinkage then uses OAS intensities).
+    #[arg(long, value_name = "T")]
+    samples: Option<usize>,
+    /// Only these schemes (comma-separated; `diagonal-loading` means its whole λ grid).
+    #[arg(long, value_delimiter = ',', value_name = "NAMES")]
+    schemes: Vec<String>,
+    /// Output folder.
+    #[arg(long, value_name = "DIR")]
+    out: PathBuf,
+    /// Simulated-dropout repeats.
+    #[arg(long, default_value_t = 20)]
+    repeats: usize,
+    /// Folds of the held-out fit and decoding checks.
+    #[arg(long, default_value_t = 5)]
+    folds: usize,
+    /// Bootstrap resamples for the per-channel spread (0 = none).
+    #[arg(long, default_value_t = 20)]
+    bootstrap: usize,
+    /// Skip leave-one-channel-out re-solves.
+    #[arg(long)]
+    no_leave_out: bool,
+    /// Skip the selection protocols (only the side-by-side table).
+    #[arg(long)]
+    no_validation: bool,
+    /// Seed for every random choice (validation, folds, bootstrap).
+    #[arg(long, default_value_t = 0)]
+    seed: u64,
+    /// Stopping tolerance of the iterative schemes.
+    #[arg(long, default_value_t = 1e-8)]
+    tol: f64,
+    /// Leave out channels that no trial observed instead of refusing.
+    #[arg(long)]
+    drop_unobserved: bool,
+    /// Print the summary JSON on stdout.
+    #[arg(long)]
+    json: bool,
+    /// No progress messages.
+    #[arg(long)]
+    quiet: bool,
+}
+
+fn common_channels(a: &MeanResult, b: &MeanResult, p: usize) -> Vec<usize> {
+    let ea = a.diagnostics.estimated_channels.clone().unwrap_or_else(|| (0..p).collect());
+    let eb = b.diagnostics.estimated_channels.clone().unwrap_or_else(|| (0..p).collect());
+    ea.into_iter().filter(|c| eb.contains(c)).collect()
+}
+
+fn block(m: &Mat, o: &[usize]) -> Mat {
+    Mat::from_fn(o.len(), o.len(), |i, j| m[(o[i], o[j])])
+}
+
+/// Weighted mean squared distance of observed blocks to the mean's sub-blocks,
+/// and the weighted mean of log det M_oo − log det C_i (swelling).
+fn dispersion_and_gap(set: &TrialSet, r: &MeanResult) -> (f64, f64) {
+    let w = set.normalized_weights();
+    let est = r.diagnostics.estimated_channels.clone();
+    let parts: Vec<(f64, f64)> = set
+        .trials()
+        .par_iter()
+        .zip(w.par_iter())
+        .map(|(t, &wi)| {
+            let o: Vec<usize> = match &est {
+                Some(e) => t.observed.iter().copied().filter(|c| e.contains(c)).collect(),
+                None => t.observed.clone(),
+            };
+            if o.is_empty() {
+                return (0.0, 0.0);
+            }
+            let pos: Vec<usize> = o.iter().map(|c| t.observed.binary_search(c).expect("subset")).collect();
+            let (m, c) = (block(&r.mean, &o), block(&t.block, &pos));
+            let d = airm_distance(&m, &c);
+            let gap = log_det(&m).unwrap_or(f64::NAN) - log_det(&c).unwrap_or(f64::NAN);
+            (wi * d * d, wi * gap)
+        })
+        .collect();
+    parts.iter().fold((0.0, 0.0), |(a, b), (x, y)| (a + x, b + y))
+}
+
+fn spread_json(s: &lacuna::select::Score) -> serde_json::Value {
+    json!({
+        "scheme": s.candidate,
+        "median": s.spread.map(|x| x.median),
+        "q1": s.spread.map(|x| x.q1),
+        "q3": s.spread.map(|x| x.q3),
+        "n": s.spread.map(|x| x.n),
+        "partial_channels": s.partial,
+        "failures": s.failures,
+        "failure_reason": s.failure_reason,
+    })
+}
+
+fn csv_cell(s: &str) -> String {
+    if s.contains([',', '"', '\n']) {
+        format!("\"{}\"", s.replace('"', "\"\""))
+    } else {
+        s.to_string()
+    }
+}
+
+pub fn run(a: CompareArgs) -> Result<i32> {
+    if !(a.tol > 0.0) || a.folds < 2 {
+        return Err(LacunaError::InvalidOption(
+            "--tol must be positive and --folds at least 2".into(),
+        ));
+    }
+    let say = |msg: &str| {
+        if !a.quiet && std::io::stderr().is_terminal() {
+            eprintln!("{msg}");
+        }
+    };
+    let started = Instant::now();
+    let mut set = load_trial_set(&a.covs, a.mask.as_deref(), None)?;
+    if let Some(path) = &a.labels {
+        let (labels, sessions) = read_labels(path, set.len())?;
+        set.labels = Some(labels);
+        set.sessions = sessions;
+    }
+    let ident = identifiability(&set);
+    if !ident.never_observed.is_empty() {
+        if !a.drop_unobserved {
+            return Err(LacunaError::Unsupported(format!(
+                "channel {} is observed in no trial; pass --drop-unobserved to leave it out",
+                set.channels()[ident.never_observed[0]]
+            )));
+        }
+        set = set.without_channels(&ident.never_observed)?;
+    }
+    let p = set.n_channels();
+    let base = SchemeOptions {
+        stop: lacuna::solve::StopRule {
+            tol: a.tol,
+            max_iter: 500,
+        },
+        samples: a.samples,
+        positions: match &a.positions {
+            Some(path) => Some(Arc::new(super::positions_by_name(read_positions(path, set.channels())?, set.channels()))),
+            None => None,
+        },
+        seed: a.seed,
+        ..SchemeOptions::default()
+    };
+    let candidates = default_candidates(&base, &a.schemes);
+    if candidates.is_empty() {
+        return Err(LacunaError::InvalidOption(format!(
+            "--schemes {}: none of these is a scheme that accepts missing channels (see `lacuna schemes`)",
+            a.schemes.join(",")
+        )));
+    }
+    say(&format!("running {} schemes on {} trials × {p} channels", candidates.len(), set.len()));
+    let results: Vec<(std::result::Result<MeanResult, String>, f64)> = candidates
+        .par_iter()
+        .map(|c| {
+            let t = Instant::now();
+            let r = c.run(&set).map_err(|e| e.to_string());
+            (r, t.elapsed().as_secs_f64())
+        })
+        .collect();
+    let ok: Vec<(usize, &MeanResult)> = results
+        .iter()
+        .enumerate()
+        .filter_map(|(k, (r, _))| r.as_ref().ok().map(|m| (k, m)))
+        .collect();
+    let mut distances = vec![vec![None; candidates.len()]; candidates.len()];
+    for &(i, ri) in &ok {
+        for &(j, rj) in &ok {
+            let ch = common_channels(ri, rj, p);
+            distances[i][j] = Some(if i == j { 0.0 } else { airm_distance(&block(&ri.mean, &ch), &block(&rj.mean, &ch)) });
+        }
+    }
+    let sel_opts = SelectOptions {
+        repeats: a.repeats,
+        folds: a.folds,
+        seed: a.seed,
+        ..SelectOptions::default()
+    };
+    let (dropout, fit, dec, rec) = if a.no_validation {
+        (None, None, None, None)
+    } else {
+        say(&format!("simulated dropout: {} repeats", a.repeats));
+        let dropout = simulated_dropout(&set, &candidates, &sel_opts)?;
+        say(&format!("held-out fit: {} folds", a.folds));
+        let fit = held_out_fit(&set, &candidates, &sel_opts)?;
+        say("decoding check");
+        let dec = decoding(&set, &candidates, &sel_opts)?;
+        let rec = recommend(&dropout, Some(&fit), dec.as_ref());
+        (Some(dropout), Some(fit), dec, Some(rec))
+    };
+    // Contributions to the masked mean.
+    let masked = candidates
+        .iter()
+        .position(|c| c.label == "airm-observed")
+        .and_then(|k| results[k].0.as_ref().ok());
+    let contrib = match masked {
+        Some(m) => {
+            say("per-channel contributions");
+            Some(contributions(
+                &set,
+                &m.mean,
+                &ContributionOptions {
+                    leave_one_out: !a.no_leave_out,
+                    bootstrap: a.bootstrap,
+                    seed: a.seed,
+                    scheme_options: base.clone(),
+                },
+            )?)
+        }
+        None => None,
+    };
+    let elapsed = started.elapsed().as_secs_f64();
+
+    // Encode everything before writing anything.
+    let mut files: Vec<(PathBuf, Vec<u8>)> = Vec::new();
+    let means_dir = a.out.join("means");
+    let mut table = String::from(
+        "scheme,status,converged,iterations,seconds,condition_number,log_det,log_det_gap,dispersion,estimated_channels,notes\n",
+    );
+    let mut rows = Vec::new();
+    for (k, c) in candidates.iter().enumerate() {
+        let (r, secs) = &results[k];
+        match r {
+            Ok(m) => {
+                let (disp, gap) = dispersion_and_gap(&set, m);
+                let est = m.diagnostics.estimated_channels.as_ref().map_or(p, Vec::len);
+                let safe = c.label.replace(['(', ')'], "_");
+                files.push((means_dir.join(format!("{safe}.npy")), encode_matrix(&means_dir.join(format!("{safe}.npy")), &m.mean, set.channels())));
+                files.push((means_dir.join(format!("{safe}.csv")), encode_matrix(&means_dir.join(format!("{safe}.csv")), &m.mean, set.channels())));
+                table.push_str(&format!(
+                    "{},ok,{},{},{:.4},{:.6e},{:.6},{:.6},{:.6},{},{}\n",
+                    csv_cell(&c.label),
+                    m.diagnostics.converged,
+                    m.diagnostics.iterations,
+                    secs,
+                    condition_number(&m.mean),
+                    log_det(&m.mean).unwrap_or(f64::NAN),
+                    gap,
+                    disp,
+                    est,
+                    csv_cell(&m.diagnostics.notes.join("; "))
+                ));
+                rows.push(json!({
+                    "scheme": c.label,
+                    "status": "ok",
+                    "converged": m.diagnostics.converged,
+                    "iterations": m.diagnostics.iterations,
+                    "seconds": secs,
+                    "condition_number": condition_number(&m.mean),
+                    "log_det": log_det(&m.mean),
+                    "log_det_gap": gap,
+                    "dispersion": disp,
+                    "estimated_channels": est,
+                    "notes": m.diagnostics.notes,
+                    "mean_file": format!("means/{safe}.npy"),
+                }));
+            }
+            Err(e) => {
+                table.push_str(&format!("{},not applicable,,,,,,,,,{}\n", csv_cell(&c.label), csv_cell(e)));
+                rows.push(json!({"scheme": c.label, "status": "not applicable", "reason": e}));
+            }
+        }
+    }
+    files.push((a.out.join("comparison.csv"), table.into_bytes()));
+    let labels: Vec<&str> = candidates.iter().map(|c| c.label.as_str()).collect();
+    let mut dist_csv = format!("scheme,{}\n", labels.iter().map(|l| csv_cell(l)).collect::<Vec<_>>().join(","));
+    for (i, row) in distances.iter().enumerate() {
+        dist_csv.push_str(&csv_cell(labels[i]));
+        for d in row {
+            dist_csv.push(',');
+            if let Some(d) = d {
+                dist_csv.push_str(&format!("{d:.6}"));
+            }
+        }
+        dist_csv.push('\n');
+    }
+    files.push((a.out.join("distances.csv"), dist_csv.into_bytes()));
+    let mut val_csv = String::from("protocol,scheme,median,q1,q3,n,failures\n");
+    let mut add = |name: &str, scores: &[lacuna::select::Score]| {
+        for s in scores {
+            let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6}"));
+            val_csv.push_str(&format!(
+                "{name},{},{},{},{},{},{}\n",
+                csv_cell(&s.candidate),
+                f(s.spread.map(|x| x.median)),
+                f(s.spread.map(|x| x.q1)),
+                f(s.spread.map(|x| x.q3)),
+                s.spread.map_or(0, |x| x.n),
+                s.failures
+            ));
+        }
+    };
+    if let Some(d) = &dropout {
+        add("simulated-dropout", &d.scores);
+    }
+    if let Some(f) = &fit {
+        add("held-out-fit", &f.scores);
+    }
+    if let Some(d) = &dec {
+        add("decoding-accuracy", &d.scores);
+    }
+    if dropout.is_some() {
+        files.push((a.out.join("validation.csv"), val_csv.into_bytes()));
+    }
+    if let Some(cs) = &contrib {
+        let mut s = String::from("channel,trials_observed,weight_share,coobserved_with,cost_share,leave_out_influence,variance,variance_q05,variance_q95,correlation_sd\n");
+        let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6e}"));
+        for c in cs {
+            s.push_str(&format!(
+                "{},{},{:.6},{},{:.6},{},{:.6e},{},{},{}\n",
+                csv_cell(&c.channel),
+                c.trials_observed,
+                c.weight_share,
+                c.coobserved_with,
+                c.cost_share,
+                f(c.leave_out_influence),
+                c.variance,
+                f(c.variance_interval.map(|v| v[0])),
+                f(c.variance_interval.map(|v| v[1])),
+                f(c.correlation_sd)
+            ));
+        }
+        files.push((a.out.join("contributions.csv"), s.into_bytes()));
+    }
+    let summary = json!({
+        "compare_version": "1",
+        "lacuna_version": env!("CARGO_PKG_VERSION"),
+        "caution": "Research software, not a medical device: results inform analysis; they do not diagnose.",
+        "trials": set.len(),
+        "channels": set.channels(),
+        "seed": a.seed,
+        "seconds": elapsed,
+        "schemes": rows,
+        "distances": {"schemes": labels, "matrix": distances},
+        "simulated_dropout": dropout.as_ref().map(|d| json!({
+            "channels": d.channels, "complete_trials": d.complete_trials,
+            "trials_per_repeat": d.trials_per_repeat, "repeats": d.repeats,
+            "scores": d.scores.iter().map(spread_json).collect::<Vec<_>>(),
+        })),
+        "held_out_fit": fit.as_ref().map(|f| json!({
+            "folds": f.folds, "scores": f.scores.iter().map(spread_json).collect::<Vec<_>>(),
+        })),
+        "decoding": dec.as_ref().map(|d| json!({
+            "folds": d.folds, "classes": d.classes, "chance": d.chance,
+            "scores": d.scores.iter().map(spread_json).collect::<Vec<_>>(),
+        })),
+        "recommendation": rec,
+        "contributions": contrib,
+    });
+    files.push((a.out.join("compare.json"), serde_json::to_string_pretty(&summary).expect("JSON").into_bytes()));
+    for dir in [&a.out, &means_dir] {
+        std::fs::create_dir_all(dir).map_err(|source| LacunaError::Write {
+            path: dir.to_path_buf(),
+            source,
+        })?;
+    }
+    for (path, bytes) in &files {
+        write_atomic(path, bytes)?;
+    }
+    if a.json {
+        println!("{}", serde_json::to_string_pretty(&summary).expect("JSON"));
+    } else if !a.quiet {
+        println!("{} trials × {p} channels, {} schemes, {elapsed:.1} s", set.len(), candidates.len());
+        println!("{:<26} {:>9} {:>6} {:>11} {:>10}", "scheme", "converged", "iter", "dispersion", "seconds");
+        for (k, c) in candidates.iter().enumerate() {
+            match &results[k].0 {
+                Ok(m) => println!(
+                    "{:<26} {:>9} {:>6} {:>11.4} {:>10.3}",
+                    c.label,
+                    m.diagnostics.converged,
+                    m.diagnostics.iterations,
+                    dispersion_and_gap(&set, m).0,
+                    results[k].1
+                ),
+                Err(e) => println!("{:<26} not applicable: {e}", c.label),
+            }
+        }
+        if let Some(r) = &rec {
+            println!();
+            match &r.scheme {
+                Some(s) if r.clear => println!("recommended: {s}"),
+                Some(s) => println!("no clear winner; best on simulated dropout: {s} (tied: {})", r.tied.join(", ")),
+                None => println!("no recommendation"),
+            }
+            for reason in &r.reasons {
+                println!("  - {reason}");
+            }
+        }
+        println!("wrote {}", a.out.display());
+    }
+    Ok(0)
+}

@@ -1,0 +1,168 @@
+//! How much each channel contributed to a masked mean.
+//!
+//! For channel c (definitions in docs/schemes.md):
+//! - `trials_observed`, `weight_share`: trials that observed c and their
+//!   share of the total weight;
+//! - `coobserved_with`: how many other channels were ever observed with c;
+//! - `cost_share`: each trial's squared tangent residual
+//!   ‖log(M_o^{-1/2} C M_o^{-1/2})‖²_F (M_o the mean's sub-block, symmetric
+//!   square root) split over the residual's rows, row r going to channel
+//!   o[r]; summed with the trial weights and divided by the total, so the
+//!   shares add to 1;
+//! - `leave_out_influence`: the affine-invariant distance, on the other
+//!   channels, between the mean and the mean re-solved (warm-started)
+//!   without any observation of c;
+//! - bootstrap: trials resampled with replacement (seeded), the mean
+//!   re-solved each time (warm-started); the 5–95% interval of c's variance
+//!   and the median over other channels of the standard deviation of its
+//!   correlation with them.
+
+use rayon::prelude::*;
+use serde::Serialize;
+
+use crate::error::Result;
+use crate::schemes::{AirmObserved, AveragingScheme, SchemeOptions};
+use crate::simulate::rng::Rng;
+use crate::spd::Mat;
+use crate::spd::distance::airm_distance;
+use crate::spd::kernels::sym_eigen;
+use crate::trials::TrialSet;
+
+/// One channel's contribution.
+#[derive(Debug, Clone, Serialize)]
+pub struct ChannelContribution {
+    pub channel: String,
+    pub trials_observed: usize,
+    pub weight_share: f64,
+    pub coobserved_with: usize,
+    pub cost_share: f64,
+    pub leave_out_influence: Option<f64>,
+    pub variance: f64,
+    /// 5% and 95% bootstrap quantiles of the variance.
+    pub variance_interval: Option<[f64; 2]>,
+    /// Median over other channels of the bootstrap SD of the correlation.
+    pub correlation_sd: Option<f64>,
+}
+
+/// Options: which measures to compute.
+#[derive(Debug, Clone)]
+pub struct ContributionOptions {
+    pub leave_one_out: bool,
+    /// Bootstrap resamples (0 = none).
+    pub bootstrap: usize,
+    pub seed: u64,
+    pub scheme_options: SchemeOptions,
+}
+
+/// Per-trial cost split over channels: Σ ŵ_i ‖row_r(T_i)‖² per channel.
+pub fn cost_split(set: &TrialSet, mean: &Mat) -> Vec<f64> {
+    let p = set.n_channels();
+    let w = set.normalized_weights();
+    let parts: Vec<Vec<f64>> = set
+        .trials()
+        .par_iter()
+        .zip(w.par_iter())
+        .map(|(t, &wi)| {
+            let o = &t.observed;
+            let m = Mat::from_fn(o.len(), o.len(), |a, b| mean[(o[a], o[b])]);
+            let isq = sym_eigen(&m).apply(|v| 1.0 / v.sqrt());
+            let inner = crate::spd::symmetrize(&(&isq * &t.block * &isq));
+            let log = sym_eigen(&inner).apply(f64::ln);
+            let mut out = vec![0.0; p];
+            for (r, &c) in o.iter().enumerate() {
+                out[c] = wi * log.row(r).norm_squared();
+            }
+            out
+        })
+        .collect();
+    let mut total = vec![0.0; p];
+    for part in parts {
+        for (a, b) in total.iter_mut().zip(part) {
+            *a += b;
+        }
+    }
+    total
+}
+
+/// Computes every channel's contribution to `mean`, the airm-observed mean of `set`.
+pub fn contributions(set: &TrialSet, mean: &Mat, opts: &ContributionOptions) -> Result<Vec<ChannelContribution>> {
+    let p = set.n_channels();
+    let summary = crate::diagnose::summarize(set, mean);
+    let counts = set.coobservation_counts();
+    let split = cost_split(set, mean);
+    let total: f64 = split.iter().sum();
+    let loo: Vec<Option<f64>> = if opts.leave_one_out && p > 2 {
+        (0..p)
+            .into_par_iter()
+            .map(|c| {
+                let rest: Vec<usize> = (0..p).filter(|&k| k != c).collect();
+                // Trials that observed only c have nothing left: leave them out.
+                let keep: Vec<usize> = (0..set.len())
+                    .filter(|&i| set.trials()[i].observed.iter().any(|&k| k != c))
+                    .collect();
+                let sub = set.select_trials(&keep).ok()?.without_channels(&[c]).ok()?;
+                let start = Mat::from_fn(p - 1, p - 1, |a, b| mean[(rest[a], rest[b])]);
+                let o = SchemeOptions {
+                    warm_start: Some(std::sync::Arc::new(start.clone())),
+                    observer: None,
+                    starts: 1,
+                    ..opts.scheme_options.clone()
+                };
+                let r = AirmObserved.average(&sub, &o).ok()?;
+                Some(airm_distance(&r.mean, &start))
+            })
+            .collect()
+    } else {
+        vec![None; p]
+    };
+    let boot: Vec<Mat> = (0..opts.bootstrap)
+        .into_par_iter()
+        .filter_map(|b| {
+            let mut rng = Rng::new(opts.seed ^ (0xB007u64.wrapping_mul(b as u64 + 1)));
+            let idx: Vec<usize> = (0..set.len()).map(|_| rng.below(set.len())).collect();
+            let sub = set.select_trials(&idx).ok()?;
+            let o = SchemeOptions {
+                warm_start: Some(std::sync::Arc::new(mean.clone())),
+                observer: None,
+                starts: 1,
+                ..opts.scheme_options.clone()
+            };
+            AirmObserved.average(&sub, &o).ok().map(|r| r.mean)
+        })
+        .collect();
+    Ok((0..p)
+        .map(|c| {
+            let (variance_interval, correlation_sd) = if boot.len() >= 2 {
+                let mut v: Vec<f64> = boot.iter().map(|m| m[(c, c)]).collect();
+                let q05 = crate::ingest::detect::quantile_in_place(&mut v, 0.05);
+                let q95 = crate::ingest::detect::quantile_in_place(&mut v, 0.95);
+                let mut sds: Vec<f64> = (0..p)
+                    .filter(|&k| k != c)
+                    .map(|k| {
+                        let r: Vec<f64> = boot
+                            .iter()
+                            .map(|m| m[(c, k)] / (m[(c, c)] * m[(k, k)]).sqrt())
+                            .collect();
+                        let mu = r.iter().sum::<f64>() / r.len() as f64;
+                        (r.iter().map(|x| (x - mu).powi(2)).sum::<f64>() / (r.len() - 1) as f64).sqrt()
+                    })
+                    .collect();
+                let med = if sds.is_empty() { None } else { Some(crate::ingest::detect::quantile_in_place(&mut sds, 0.5)) };
+                (Some([q05, q95]), med)
+            } else {
+                (None, None)
+            };
+            ChannelContribution {
+                channel: set.channels()[c].clone(),
+                trials_observed: summary.coverage[c].trials_observed,
+                weight_share: summary.coverage[c].weight_share,
+                coobserved_with: (0..p).filter(|&k| k != c && counts[c][k] > 0).count(),
+                cost_share: if total > 0.0 { split[c] / total } else { 0.0 },
+                leave_out_influence: loo[c],
+                variance: mean[(c, c)],
+                variance_interval,
+                correlation_sd,
+            }
+        })
+        .collect())
+}
