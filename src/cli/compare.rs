@@ -83,8 +83,16 @@ pub struct CompareArgs {
 }
 
 fn common_channels(a: &MeanResult, b: &MeanResult, p: usize) -> Vec<usize> {
-    let ea = a.diagnostics.estimated_channels.clone().unwrap_or_else(|| (0..p).collect());
-    let eb = b.diagnostics.estimated_channels.clone().unwrap_or_else(|| (0..p).collect());
+    let ea = a
+        .diagnostics
+        .estimated_channels
+        .clone()
+        .unwrap_or_else(|| (0..p).collect());
+    let eb = b
+        .diagnostics
+        .estimated_channels
+        .clone()
+        .unwrap_or_else(|| (0..p).collect());
     ea.into_iter().filter(|c| eb.contains(c)).collect()
 }
 
@@ -103,20 +111,30 @@ fn dispersion_and_gap(set: &TrialSet, r: &MeanResult) -> (f64, f64) {
         .zip(w.par_iter())
         .map(|(t, &wi)| {
             let o: Vec<usize> = match &est {
-                Some(e) => t.observed.iter().copied().filter(|c| e.contains(c)).collect(),
+                Some(e) => t
+                    .observed
+                    .iter()
+                    .copied()
+                    .filter(|c| e.contains(c))
+                    .collect(),
                 None => t.observed.clone(),
             };
             if o.is_empty() {
                 return (0.0, 0.0);
             }
-            let pos: Vec<usize> = o.iter().map(|c| t.observed.binary_search(c).expect("subset")).collect();
+            let pos: Vec<usize> = o
+                .iter()
+                .map(|c| t.observed.binary_search(c).expect("subset"))
+                .collect();
             let (m, c) = (block(&r.mean, &o), block(&t.block, &pos));
             let d = airm_distance(&m, &c);
             let gap = log_det(&m).unwrap_or(f64::NAN) - log_det(&c).unwrap_or(f64::NAN);
             (wi * d * d, wi * gap)
         })
         .collect();
-    parts.iter().fold((0.0, 0.0), |(a, b), (x, y)| (a + x, b + y))
+    parts
+        .iter()
+        .fold((0.0, 0.0), |(a, b), (x, y)| (a + x, b + y))
 }
 
 fn spread_json(s: &lacuna::select::Score) -> serde_json::Value {
@@ -176,7 +194,10 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         },
         samples: a.samples,
         positions: match &a.positions {
-            Some(path) => Some(Arc::new(super::positions_by_name(read_positions(path, set.channels())?, set.channels()))),
+            Some(path) => Some(Arc::new(super::positions_by_name(
+                read_positions(path, set.channels())?,
+                set.channels(),
+            ))),
             None => None,
         },
         seed: a.seed,
@@ -189,7 +210,13 @@ pub fn run(a: CompareArgs) -> Result<i32> {
             a.schemes.join(",")
         )));
     }
-    say(&format!("running {} schemes on {} trials × {p} channels", candidates.len(), set.len()));
+    say(&format!(
+        "running {} schemes on {} trials × {p} channels",
+        candidates.len(),
+        set.len()
+    ));
+    let mut timings: Vec<(&str, f64)> = Vec::new();
+    let t0 = Instant::now();
     let results: Vec<(std::result::Result<MeanResult, String>, f64)> = candidates
         .par_iter()
         .map(|c| {
@@ -198,6 +225,7 @@ pub fn run(a: CompareArgs) -> Result<i32> {
             (r, t.elapsed().as_secs_f64())
         })
         .collect();
+    timings.push(("schemes", t0.elapsed().as_secs_f64()));
     let ok: Vec<(usize, &MeanResult)> = results
         .iter()
         .enumerate()
@@ -207,7 +235,11 @@ pub fn run(a: CompareArgs) -> Result<i32> {
     for &(i, ri) in &ok {
         for &(j, rj) in &ok {
             let ch = common_channels(ri, rj, p);
-            distances[i][j] = Some(if i == j { 0.0 } else { airm_distance(&block(&ri.mean, &ch), &block(&rj.mean, &ch)) });
+            distances[i][j] = Some(if i == j {
+                0.0
+            } else {
+                airm_distance(&block(&ri.mean, &ch), &block(&rj.mean, &ch))
+            });
         }
     }
     let sel_opts = SelectOptions {
@@ -220,11 +252,17 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         (None, None, None, None)
     } else {
         say(&format!("simulated dropout: {} repeats", a.repeats));
+        let t = Instant::now();
         let dropout = simulated_dropout(&set, &candidates, &sel_opts)?;
+        timings.push(("simulated_dropout", t.elapsed().as_secs_f64()));
         say(&format!("held-out fit: {} folds", a.folds));
+        let t = Instant::now();
         let fit = held_out_fit(&set, &candidates, &sel_opts)?;
+        timings.push(("held_out_fit", t.elapsed().as_secs_f64()));
         say("decoding check");
+        let t = Instant::now();
         let dec = decoding(&set, &candidates, &sel_opts)?;
+        timings.push(("decoding", t.elapsed().as_secs_f64()));
         let rec = recommend(&dropout, Some(&fit), dec.as_ref());
         (Some(dropout), Some(fit), dec, Some(rec))
     };
@@ -236,7 +274,8 @@ pub fn run(a: CompareArgs) -> Result<i32> {
     let contrib = match masked {
         Some(m) => {
             say("per-channel contributions");
-            Some(contributions(
+            let t = Instant::now();
+            let c = contributions(
                 &set,
                 &m.mean,
                 &ContributionOptions {
@@ -245,7 +284,9 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                     seed: a.seed,
                     scheme_options: base.clone(),
                 },
-            )?)
+            )?;
+            timings.push(("contributions", t.elapsed().as_secs_f64()));
+            Some(c)
         }
         None => None,
     };
@@ -263,10 +304,28 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         match r {
             Ok(m) => {
                 let (disp, gap) = dispersion_and_gap(&set, m);
-                let est = m.diagnostics.estimated_channels.as_ref().map_or(p, Vec::len);
+                let est = m
+                    .diagnostics
+                    .estimated_channels
+                    .as_ref()
+                    .map_or(p, Vec::len);
                 let safe = c.label.replace(['(', ')'], "_");
-                files.push((means_dir.join(format!("{safe}.npy")), encode_matrix(&means_dir.join(format!("{safe}.npy")), &m.mean, set.channels())));
-                files.push((means_dir.join(format!("{safe}.csv")), encode_matrix(&means_dir.join(format!("{safe}.csv")), &m.mean, set.channels())));
+                files.push((
+                    means_dir.join(format!("{safe}.npy")),
+                    encode_matrix(
+                        &means_dir.join(format!("{safe}.npy")),
+                        &m.mean,
+                        set.channels(),
+                    ),
+                ));
+                files.push((
+                    means_dir.join(format!("{safe}.csv")),
+                    encode_matrix(
+                        &means_dir.join(format!("{safe}.csv")),
+                        &m.mean,
+                        set.channels(),
+                    ),
+                ));
                 table.push_str(&format!(
                     "{},ok,{},{},{:.4},{:.6e},{:.6},{:.6},{:.6},{},{}\n",
                     csv_cell(&c.label),
@@ -296,14 +355,25 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                 }));
             }
             Err(e) => {
-                table.push_str(&format!("{},not applicable,,,,,,,,,{}\n", csv_cell(&c.label), csv_cell(e)));
+                table.push_str(&format!(
+                    "{},not applicable,,,,,,,,,{}\n",
+                    csv_cell(&c.label),
+                    csv_cell(e)
+                ));
                 rows.push(json!({"scheme": c.label, "status": "not applicable", "reason": e}));
             }
         }
     }
     files.push((a.out.join("comparison.csv"), table.into_bytes()));
     let labels: Vec<&str> = candidates.iter().map(|c| c.label.as_str()).collect();
-    let mut dist_csv = format!("scheme,{}\n", labels.iter().map(|l| csv_cell(l)).collect::<Vec<_>>().join(","));
+    let mut dist_csv = format!(
+        "scheme,{}\n",
+        labels
+            .iter()
+            .map(|l| csv_cell(l))
+            .collect::<Vec<_>>()
+            .join(",")
+    );
     for (i, row) in distances.iter().enumerate() {
         dist_csv.push_str(&csv_cell(labels[i]));
         for d in row {
@@ -343,7 +413,9 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         files.push((a.out.join("validation.csv"), val_csv.into_bytes()));
     }
     if let Some(cs) = &contrib {
-        let mut s = String::from("channel,trials_observed,weight_share,coobserved_with,cost_share,leave_out_influence,variance,variance_q05,variance_q95,correlation_sd\n");
+        let mut s = String::from(
+            "channel,trials_observed,weight_share,coobserved_with,cost_share,leave_out_influence,variance,variance_q05,variance_q95,correlation_sd\n",
+        );
         let f = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6e}"));
         for c in cs {
             s.push_str(&format!(
@@ -370,6 +442,7 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         "channels": set.channels(),
         "seed": a.seed,
         "seconds": elapsed,
+        "stage_seconds": timings.iter().map(|(k, v)| (k.to_string(), json!(v))).collect::<serde_json::Map<_, _>>(),
         "schemes": rows,
         "distances": {"schemes": labels, "matrix": distances},
         "simulated_dropout": dropout.as_ref().map(|d| json!({
@@ -387,7 +460,12 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         "recommendation": rec,
         "contributions": contrib,
     });
-    files.push((a.out.join("compare.json"), serde_json::to_string_pretty(&summary).expect("JSON").into_bytes()));
+    files.push((
+        a.out.join("compare.json"),
+        serde_json::to_string_pretty(&summary)
+            .expect("JSON")
+            .into_bytes(),
+    ));
     for dir in [&a.out, &means_dir] {
         std::fs::create_dir_all(dir).map_err(|source| LacunaError::Write {
             path: dir.to_path_buf(),
@@ -400,8 +478,15 @@ pub fn run(a: CompareArgs) -> Result<i32> {
     if a.json {
         println!("{}", serde_json::to_string_pretty(&summary).expect("JSON"));
     } else if !a.quiet {
-        println!("{} trials × {p} channels, {} schemes, {elapsed:.1} s", set.len(), candidates.len());
-        println!("{:<26} {:>9} {:>6} {:>11} {:>10}", "scheme", "converged", "iter", "dispersion", "seconds");
+        println!(
+            "{} trials × {p} channels, {} schemes, {elapsed:.1} s",
+            set.len(),
+            candidates.len()
+        );
+        println!(
+            "{:<26} {:>9} {:>6} {:>11} {:>10}",
+            "scheme", "converged", "iter", "dispersion", "seconds"
+        );
         for (k, c) in candidates.iter().enumerate() {
             match &results[k].0 {
                 Ok(m) => println!(
@@ -419,7 +504,10 @@ pub fn run(a: CompareArgs) -> Result<i32> {
             println!();
             match &r.scheme {
                 Some(s) if r.clear => println!("recommended: {s}"),
-                Some(s) => println!("no clear winner; best on simulated dropout: {s} (tied: {})", r.tied.join(", ")),
+                Some(s) => println!(
+                    "no clear winner; best on simulated dropout: {s} (tied: {})",
+                    r.tied.join(", ")
+                ),
                 None => println!("no recommendation"),
             }
             for reason in &r.reasons {

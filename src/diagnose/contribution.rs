@@ -85,7 +85,21 @@ pub fn cost_split(set: &TrialSet, mean: &Mat) -> Vec<f64> {
 }
 
 /// Computes every channel's contribution to `mean`, the airm-observed mean of `set`.
-pub fn contributions(set: &TrialSet, mean: &Mat, opts: &ContributionOptions) -> Result<Vec<ChannelContribution>> {
+/// The re-solves (leave-one-out, bootstrap) start from `mean` and stop at a
+/// relative gradient norm of max(tol, 1e-4): they measure changes of order
+/// 1e-2 (influence) and spreads of a few percent (bootstrap), to which that
+/// stop adds an error of about 1e-4 — and it saves most of the p + B solves' cost.
+pub fn contributions(
+    set: &TrialSet,
+    mean: &Mat,
+    opts: &ContributionOptions,
+) -> Result<Vec<ChannelContribution>> {
+    let mut resolve = opts.scheme_options.clone();
+    resolve.stop.tol = resolve.stop.tol.max(1e-4);
+    let opts = &ContributionOptions {
+        scheme_options: resolve,
+        ..opts.clone()
+    };
     let p = set.n_channels();
     let summary = crate::diagnose::summarize(set, mean);
     let counts = set.coobservation_counts();
@@ -93,7 +107,6 @@ pub fn contributions(set: &TrialSet, mean: &Mat, opts: &ContributionOptions) -> 
     let total: f64 = split.iter().sum();
     let loo: Vec<Option<f64>> = if opts.leave_one_out && p > 2 {
         (0..p)
-            .into_par_iter()
             .map(|c| {
                 let rest: Vec<usize> = (0..p).filter(|&k| k != c).collect();
                 // Trials that observed only c have nothing left: leave them out.
@@ -116,7 +129,6 @@ pub fn contributions(set: &TrialSet, mean: &Mat, opts: &ContributionOptions) -> 
         vec![None; p]
     };
     let boot: Vec<Mat> = (0..opts.bootstrap)
-        .into_par_iter()
         .filter_map(|b| {
             let mut rng = Rng::new(opts.seed ^ (0xB007u64.wrapping_mul(b as u64 + 1)));
             let idx: Vec<usize> = (0..set.len()).map(|_| rng.below(set.len())).collect();
@@ -144,10 +156,15 @@ pub fn contributions(set: &TrialSet, mean: &Mat, opts: &ContributionOptions) -> 
                             .map(|m| m[(c, k)] / (m[(c, c)] * m[(k, k)]).sqrt())
                             .collect();
                         let mu = r.iter().sum::<f64>() / r.len() as f64;
-                        (r.iter().map(|x| (x - mu).powi(2)).sum::<f64>() / (r.len() - 1) as f64).sqrt()
+                        (r.iter().map(|x| (x - mu).powi(2)).sum::<f64>() / (r.len() - 1) as f64)
+                            .sqrt()
                     })
                     .collect();
-                let med = if sds.is_empty() { None } else { Some(crate::ingest::detect::quantile_in_place(&mut sds, 0.5)) };
+                let med = if sds.is_empty() {
+                    None
+                } else {
+                    Some(crate::ingest::detect::quantile_in_place(&mut sds, 0.5))
+                };
                 (Some([q05, q95]), med)
             } else {
                 (None, None)

@@ -296,7 +296,7 @@ impl AirmObserved {
     fn starting_points(&self, set: &TrialSet, options: &SchemeOptions) -> Vec<(String, Mat)> {
         let mut starts = match &options.warm_start {
             Some(x) if x.nrows() == set.n_channels() => {
-                vec![("given warm start".to_string(), (**x).clone())]
+                vec![("given warm-start".to_string(), (**x).clone())]
             }
             _ => vec![(options.init.name().to_string(), options.init.start(set))],
         };

@@ -61,7 +61,7 @@ impl AveragingScheme for CommonChannels {
         )];
         notes.append(&mut r.diagnostics.notes);
         r.diagnostics.notes = notes;
-        r.diagnostics.estimated_channels = Some(common);
+        r.diagnostics.estimated_channels = (common.len() < p).then_some(common);
         r.scheme = self.name().into();
         r.mean = full;
         Ok(r)

@@ -98,7 +98,9 @@ impl AveragingScheme for SphericalSpline {
             .iter()
             .map(|c| {
                 positions.get(c).copied().ok_or_else(|| {
-                    LacunaError::Unsupported(format!("spherical-spline: no electrode position for channel {c}"))
+                    LacunaError::Unsupported(format!(
+                        "spherical-spline: no electrode position for channel {c}"
+                    ))
                 })
             })
             .collect::<Result<_>>()?;
