@@ -5,6 +5,7 @@
 //! Run: `cargo run --release --bin lacuna-bench -- --help`. Results and the
 //! machine they came from are written down in docs/performance.md.
 
+mod compare;
 mod ingest;
 
 use std::path::PathBuf;
@@ -63,9 +64,10 @@ fn parse() -> Args {
             }
             "--help" | "-h" => {
                 println!(
-                    "lacuna-bench [--mode karcher|masked|kernels|ingest] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--file REC.bdf]\n\n\
+                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--file REC.bdf]\n\n\
                      karcher: full-data Karcher mean, default sizes 100x{{8,32,64,128}} and 10000x{{8,32,64,128}}\n\
                      masked:  airm-observed with 20% of trials missing 1-8 channels, default 10000x64\n\
+                     compare: the whole compare pipeline on --size NxP (default 2000x32), per stage\n\
                      ingest:  a simulated 1-hour, 64-channel, 512 Hz BDF (generated once into --file, default in the temp folder)\n\
                               read, then 2 s epochs with 8-30 Hz band-pass, detection and OAS; throughput and peak memory\n\
                      --reference PYTHON runs tests/reference/bench_reference.py with that interpreter on the same data\n\
@@ -80,6 +82,8 @@ fn parse() -> Args {
     if a.sizes.is_empty() {
         a.sizes = if a.mode == "masked" {
             vec![(10_000, 64)]
+        } else if a.mode == "compare" {
+            vec![(2000, 32)]
         } else {
             [100, 10_000]
                 .iter()
@@ -202,6 +206,11 @@ fn main() {
     match args.mode.as_str() {
         "ingest" => {
             ingest::run(args.file.clone(), args.reference.as_deref(), &args.threads);
+            return;
+        }
+        "compare" => {
+            let (n, p) = args.sizes.first().copied().unwrap_or((2000, 32));
+            compare::run(n, p);
             return;
         }
         "ingest-generate" => {

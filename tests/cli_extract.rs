@@ -488,17 +488,45 @@ fn csv_recording_with_events_and_set_aside_channels() {
 fn compare_on_demo_trials() {
     let d = Dir::new("compare");
     let trials = d.path("trials");
-    let (s1, s2, s3) = (demo("session-1.edf"), demo("session-2.edf"), demo("session-3.edf"));
+    let (s1, s2, s3) = (
+        demo("session-1.edf"),
+        demo("session-2.edf"),
+        demo("session-3.edf"),
+    );
     let (code, _, err) = lacuna(&[
-        "extract", &s1, &s2, &s3, "--offset", "0.5", "--length", "2", "--band", "8-30", "--out",
-        s(&trials), "--quiet",
+        "extract",
+        &s1,
+        &s2,
+        &s3,
+        "--offset",
+        "0.5",
+        "--length",
+        "2",
+        "--band",
+        "8-30",
+        "--out",
+        s(&trials),
+        "--quiet",
     ]);
     assert_eq!(code, 0, "{err}");
     let out = d.path("cmp");
     let (code, stdout, err) = lacuna(&[
-        "compare", "--covs", s(&trials.join("covs.npy")), "--mask", s(&trials.join("mask.csv")),
-        "--labels", s(&trials.join("labels.csv")), "--positions", &demo("positions.csv"),
-        "--repeats", "6", "--bootstrap", "4", "--out", s(&out), "--json",
+        "compare",
+        "--covs",
+        s(&trials.join("covs.npy")),
+        "--mask",
+        s(&trials.join("mask.csv")),
+        "--labels",
+        s(&trials.join("labels.csv")),
+        "--positions",
+        &demo("positions.csv"),
+        "--repeats",
+        "6",
+        "--bootstrap",
+        "4",
+        "--out",
+        s(&out),
+        "--json",
     ]);
     assert_eq!(code, 0, "{err}");
     let v: serde_json::Value = serde_json::from_str(&stdout).unwrap();
@@ -509,7 +537,15 @@ fn compare_on_demo_trials() {
     assert!(v["recommendation"]["reasons"].as_array().unwrap().len() >= 3);
     assert!(v["decoding"]["scores"].as_array().unwrap().len() == 12);
     assert_eq!(v["contributions"].as_array().unwrap().len(), 24);
-    for f in ["comparison.csv", "distances.csv", "validation.csv", "contributions.csv", "compare.json", "means/airm-observed.npy", "means/gaussian-em.csv"] {
+    for f in [
+        "comparison.csv",
+        "distances.csv",
+        "validation.csv",
+        "contributions.csv",
+        "compare.json",
+        "means/airm-observed.npy",
+        "means/gaussian-em.csv",
+    ] {
         assert!(out.join(f).exists(), "{f} missing");
     }
     // Distances are symmetric with a zero diagonal.
@@ -525,16 +561,33 @@ fn compare_on_demo_trials() {
     let bad = d.write("labels.csv", b"label\nrest\ntask\n");
     let never = d.path("never");
     let (code, _, err) = lacuna(&[
-        "compare", "--covs", s(&trials.join("covs.npy")), "--mask", s(&trials.join("mask.csv")),
-        "--labels", s(&bad), "--out", s(&never),
+        "compare",
+        "--covs",
+        s(&trials.join("covs.npy")),
+        "--mask",
+        s(&trials.join("mask.csv")),
+        "--labels",
+        s(&bad),
+        "--out",
+        s(&never),
     ]);
     assert_eq!(code, 3, "{err}");
-    assert!(err.contains("labels.csv") && err.contains("2 label rows for 90 trials"), "{err}");
+    assert!(
+        err.contains("labels.csv") && err.contains("2 label rows for 90 trials"),
+        "{err}"
+    );
     assert!(!never.exists());
     // Unknown scheme: a usage error.
     let (code, _, _) = lacuna(&[
-        "compare", "--covs", s(&trials.join("covs.npy")), "--mask", s(&trials.join("mask.csv")),
-        "--schemes", "nonsense", "--out", s(&never),
+        "compare",
+        "--covs",
+        s(&trials.join("covs.npy")),
+        "--mask",
+        s(&trials.join("mask.csv")),
+        "--schemes",
+        "nonsense",
+        "--out",
+        s(&never),
     ]);
     assert_eq!(code, 2);
 }

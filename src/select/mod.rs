@@ -243,7 +243,7 @@ pub fn simulated_dropout(
         .filter(|o| o.len() >= 2)
         .collect();
     let per_repeat = complete.len().min(opts.max_trials);
-    let runs: Vec<Vec<std::result::Result<(f64, Option<usize>), String>>> = (0..opts.repeats)
+    let runs: Vec<Vec<RunOutcome>> = (0..opts.repeats)
         .into_par_iter()
         .map(|r| {
             let mut rng =
@@ -302,10 +302,11 @@ pub fn simulated_dropout(
     })
 }
 
-fn score_of(
-    label: &str,
-    runs: impl Iterator<Item = std::result::Result<(f64, Option<usize>), String>>,
-) -> Score {
+/// One run of one candidate: its value and how many channels it estimated
+/// (None = all), or why it failed.
+type RunOutcome = std::result::Result<(f64, Option<usize>), String>;
+
+fn score_of(label: &str, runs: impl Iterator<Item = RunOutcome>) -> Score {
     let mut values = Vec::new();
     let mut partial = None;
     let mut failures = 0;
@@ -363,8 +364,8 @@ pub fn held_out_fit(
     opts: &SelectOptions,
 ) -> Result<HeldOutFit> {
     let fs = folds(set.len(), opts.folds, opts.seed ^ 0xF01D);
-    #[allow(clippy::type_complexity)]
-    let per_fold: Vec<Vec<std::result::Result<(Option<usize>, Vec<f64>), String>>> = fs
+    type FoldOutcome = std::result::Result<(Option<usize>, Vec<f64>), String>;
+    let per_fold: Vec<Vec<FoldOutcome>> = fs
         .par_iter()
         .map(|test| {
             let train: Vec<usize> = (0..set.len())
