@@ -1,6 +1,6 @@
 //! `lacuna-bench --mode compare`: the whole `compare` pipeline (all schemes,
 //! 20 simulated-dropout repeats, 5-fold held-out fit, contributions with
-//! leave-one-out and 20 bootstrap resamples) on N = 2000, p = 32, timed per
+//! leave-one-out and 10 bootstrap resamples) on N = 2000, p = 32, timed per
 //! stage. The in-run reference is one airm-observed solve on the same data:
 //! the ratio says what the whole comparison costs in masked means.
 
@@ -77,7 +77,7 @@ pub fn run(n: usize, p: usize) {
         ("simulated dropout, 20 repeats", dropout),
         ("held-out fit, 5 folds", fit),
         ("decoding, 5 folds", dec),
-        ("contributions (leave-one-out + 20 bootstrap)", contrib),
+        ("contributions (leave-one-out + 10 bootstrap)", contrib),
         ("**total**", all),
         ("reference: one airm-observed solve", reference),
     ] {

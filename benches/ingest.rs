@@ -43,7 +43,7 @@ pub fn generate(path: &Path) {
         sampling_rate: p.rate,
         record_seconds: 1,
         patient: "X X X X",
-        recording: "Startdate X X benchmark",
+        recording: "Startdate X X X benchmark",
         events: &s.events,
     };
     write_edf(path, &spec, &s.signals).expect("write");

@@ -57,7 +57,7 @@ pub struct CompareArgs {
     #[arg(long, default_value_t = 5)]
     folds: usize,
     /// Bootstrap resamples for the per-channel spread (0 = none).
-    #[arg(long, default_value_t = 20)]
+    #[arg(long, default_value_t = 10)]
     bootstrap: usize,
     /// Skip leave-one-channel-out re-solves.
     #[arg(long)]

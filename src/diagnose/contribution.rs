@@ -107,13 +107,18 @@ pub fn contributions(
     let total: f64 = split.iter().sum();
     let loo: Vec<Option<f64>> = if opts.leave_one_out && p > 2 {
         (0..p)
+            .into_par_iter()
             .map(|c| {
                 let rest: Vec<usize> = (0..p).filter(|&k| k != c).collect();
                 // Trials that observed only c have nothing left: leave them out.
                 let keep: Vec<usize> = (0..set.len())
                     .filter(|&i| set.trials()[i].observed.iter().any(|&k| k != c))
                     .collect();
-                let sub = set.select_trials(&keep).ok()?.without_channels(&[c]).ok()?;
+                let sub = if keep.len() == set.len() {
+                    set.without_channels(&[c]).ok()?
+                } else {
+                    set.select_trials(&keep).ok()?.without_channels(&[c]).ok()?
+                };
                 let start = Mat::from_fn(p - 1, p - 1, |a, b| mean[(rest[a], rest[b])]);
                 let o = SchemeOptions {
                     warm_start: Some(std::sync::Arc::new(start.clone())),
@@ -129,6 +134,7 @@ pub fn contributions(
         vec![None; p]
     };
     let boot: Vec<Mat> = (0..opts.bootstrap)
+        .into_par_iter()
         .filter_map(|b| {
             let mut rng = Rng::new(opts.seed ^ (0xB007u64.wrapping_mul(b as u64 + 1)));
             let idx: Vec<usize> = (0..set.len()).map(|_| rng.below(set.len())).collect();
