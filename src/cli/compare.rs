@@ -74,6 +74,12 @@ pub struct CompareArgs {
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
     drop_unobserved: bool,
+    /// Also write the self-contained HTML report to this file.
+    #[arg(long, value_name = "REPORT.html")]
+    html: Option<PathBuf>,
+    /// The epochs.json of `lacuna extract`, for the dropout raster in --html.
+    #[arg(long, value_name = "epochs.json")]
+    epochs: Option<PathBuf>,
     /// Print the summary JSON on stdout.
     #[arg(long)]
     json: bool,
@@ -352,6 +358,8 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                     "estimated_channels": est,
                     "notes": m.diagnostics.notes,
                     "mean_file": format!("means/{safe}.npy"),
+                    "mean": (0..p).map(|i| (0..p).map(|j| m.mean[(i, j)]).collect::<Vec<f64>>()).collect::<Vec<_>>(),
+                    "trace": m.diagnostics.trace,
                 }));
             }
             Err(e) => {
@@ -440,6 +448,8 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         "caution": "Research software, not a medical device: results inform analysis; they do not diagnose.",
         "trials": set.len(),
         "channels": set.channels(),
+        "coobservation": set.coobservation_counts(),
+        "unconstrained_pairs": identifiability(&set).unconstrained_pairs,
         "seed": a.seed,
         "seconds": elapsed,
         "stage_seconds": timings.iter().map(|(k, v)| (k.to_string(), json!(v))).collect::<serde_json::Map<_, _>>(),
@@ -466,6 +476,16 @@ pub fn run(a: CompareArgs) -> Result<i32> {
             .expect("JSON")
             .into_bytes(),
     ));
+    if let Some(path) = &a.html {
+        let epochs = match &a.epochs {
+            Some(e) => Some(super::report::read_json(e)?),
+            None => None,
+        };
+        files.push((
+            path.clone(),
+            lacuna::report::html::render(&summary, epochs.as_ref()).into_bytes(),
+        ));
+    }
     for dir in [&a.out, &means_dir] {
         std::fs::create_dir_all(dir).map_err(|source| LacunaError::Write {
             path: dir.to_path_buf(),

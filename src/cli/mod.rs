@@ -7,6 +7,7 @@
 mod compare;
 mod extract;
 mod mean;
+mod report;
 mod synth;
 
 use clap::{Parser, Subcommand};
@@ -43,6 +44,8 @@ enum Command {
     /// Run every scheme on the same trials, rank them with evidence, and
     /// report each channel's contribution.
     Compare(compare::CompareArgs),
+    /// Write the self-contained HTML report of a compare folder.
+    Report(report::ReportArgs),
     /// List the averaging schemes and what each assumes.
     Schemes,
     /// Generate simulated data with known truth: covariance stacks or raw recordings.
@@ -70,6 +73,7 @@ pub fn run() -> i32 {
         Command::Extract(args) => extract::run(args),
         Command::Mean(args) => mean::run(args),
         Command::Compare(args) => compare::run(args),
+        Command::Report(args) => report::run(args),
         Command::Schemes => {
             for s in lacuna::all_schemes() {
                 let missing = if s.handles_missing() {

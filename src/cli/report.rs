@@ -1,0 +1,56 @@
+//! `lacuna report`: the self-contained HTML report from a compare folder.
+
+use std::path::{Path, PathBuf};
+
+use clap::Args;
+use lacuna::trials::npy::write_atomic;
+use lacuna::{LacunaError, Result};
+
+#[derive(Args, Debug)]
+#[command(after_help = "Example:
+  lacuna report --compare comparison --epochs trials/epochs.json --out report.html
+
+The page has no scripts and fetches nothing: open it offline, mail it, print it.")]
+pub struct ReportArgs {
+    /// The output folder of `lacuna compare` (reads compare.json).
+    #[arg(long, value_name = "DIR")]
+    compare: PathBuf,
+    /// The epochs.json of `lacuna extract`, for the dropout raster.
+    #[arg(long, value_name = "epochs.json")]
+    epochs: Option<PathBuf>,
+    /// Where to write the HTML page.
+    #[arg(long, value_name = "REPORT.html")]
+    out: PathBuf,
+}
+
+/// Reads and parses a JSON file, naming it in errors.
+pub fn read_json(path: &Path) -> Result<serde_json::Value> {
+    let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    serde_json::from_str(&text).map_err(|e| LacunaError::Format {
+        path: path.to_path_buf(),
+        message: format!("not valid JSON: {e}"),
+    })
+}
+
+pub fn run(a: ReportArgs) -> Result<i32> {
+    let path = a.compare.join("compare.json");
+    let compare = read_json(&path)?;
+    if compare["compare_version"].as_str() != Some("1") {
+        return Err(LacunaError::Format {
+            path,
+            message: "not a compare.json of this lacuna version (compare_version \"1\" expected)"
+                .into(),
+        });
+    }
+    let epochs = match &a.epochs {
+        Some(e) => Some(read_json(e)?),
+        None => None,
+    };
+    let html = lacuna::report::html::render(&compare, epochs.as_ref());
+    write_atomic(&a.out, html.as_bytes())?;
+    eprintln!("wrote {}", a.out.display());
+    Ok(0)
+}

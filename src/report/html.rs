@@ -1,0 +1,781 @@
+//! The self-contained HTML report: inline CSS and SVG, no scripts, no
+//! external resources, readable at 1280 px and printable.
+//!
+//! It formats what `lacuna compare` wrote (compare.json) and, when given,
+//! what `lacuna extract` wrote (epochs.json); it computes nothing new.
+
+use serde_json::Value;
+
+use super::colors::{diverging, sequential};
+use super::svg::{Svg, escape, fmt_tick, ticks};
+
+const CSS: &str = r#"
+:root { --ink: #1d1d1f; --muted: #5b5b63; --rule: #d9d6cf; --paper: #fbfaf7; --accent: #0e3e52; }
+* { box-sizing: border-box; }
+body { margin: 0; background: var(--paper); color: var(--ink);
+  font: 15px/1.5 system-ui, -apple-system, "Segoe UI", Roboto, "Noto Sans", sans-serif; }
+main { max-width: 1200px; margin: 0 auto; padding: 24px 32px 48px; }
+header h1 { font-size: 26px; margin: 0 0 4px; letter-spacing: 0.01em; }
+header p { margin: 0; color: var(--muted); }
+.caution { border-left: 4px solid #b22d30; background: #fff; padding: 10px 14px; margin: 16px 0 8px; }
+section { margin-top: 28px; border-top: 1px solid var(--rule); padding-top: 12px; }
+h2 { font-size: 19px; margin: 0 0 6px; color: var(--accent); }
+h3 { font-size: 15px; margin: 14px 0 4px; }
+p.note { color: var(--muted); margin: 4px 0 8px; max-width: 900px; }
+figure { margin: 10px 0 18px; }
+figcaption { color: var(--muted); font-size: 13px; max-width: 900px; }
+.grid { display: flex; flex-wrap: wrap; gap: 14px; }
+.verdict { font-size: 17px; font-weight: 600; }
+ul.reasons li { margin: 3px 0; }
+table { border-collapse: collapse; font-size: 13px; }
+th, td { border-bottom: 1px solid var(--rule); padding: 3px 8px; text-align: right; }
+th:first-child, td:first-child { text-align: left; }
+svg { max-width: 100%; height: auto; }
+svg text { font-family: system-ui, -apple-system, "Segoe UI", Roboto, "Noto Sans", sans-serif; fill: var(--ink); }
+svg .tick { font-size: 10px; fill: var(--muted); }
+svg .axis-label { font-size: 12px; }
+svg .chart-title { font-size: 13px; font-weight: 600; }
+svg .cell-code { font-size: 8px; fill: #111; }
+svg .legend { font-size: 11px; }
+@media print {
+  body { background: #fff; font-size: 11pt; }
+  main { max-width: none; padding: 0; }
+  section, figure { break-inside: avoid; page-break-inside: avoid; }
+  .caution { border: 1px solid #b22d30; }
+}
+"#;
+
+/// Reason colours and one-letter codes: colour is never the only carrier.
+const REASONS: [(&str, &str, &str); 7] = [
+    ("non-finite", "N", "#7b3294"),
+    ("railed", "R", "#d6604d"),
+    ("flat", "F", "#878787"),
+    ("deviation", "D", "#e08214"),
+    ("high-frequency-noise", "H", "#35978f"),
+    ("uncorrelated", "U", "#4393c3"),
+    ("user", "X", "#542788"),
+];
+
+fn f(v: &Value) -> Option<f64> {
+    v.as_f64()
+}
+
+fn matrix(v: &Value) -> Option<Vec<Vec<f64>>> {
+    v.as_array()?
+        .iter()
+        .map(|r| {
+            r.as_array()
+                .map(|r| r.iter().map(|x| x.as_f64().unwrap_or(f64::NAN)).collect())
+        })
+        .collect()
+}
+
+fn strings(v: &Value) -> Vec<String> {
+    v.as_array()
+        .map(|a| {
+            a.iter()
+                .filter_map(|s| s.as_str().map(str::to_string))
+                .collect()
+        })
+        .unwrap_or_default()
+}
+
+/// A heat map of a p×p matrix with channel names, a colour per cell (value
+/// in the tooltip), optional markers, and the colour scale as a legend bar.
+#[allow(clippy::too_many_arguments)]
+fn heatmap(
+    m: &[Vec<f64>],
+    names: &[String],
+    title: &str,
+    unit: &str,
+    scale: f64,
+    diverge: bool,
+    marks: &[[usize; 2]],
+    cell: f64,
+) -> String {
+    let p = m.len();
+    let label_w = 46.0;
+    let (x0, y0) = (label_w + 12.0, 40.0);
+    let size = cell * p as f64;
+    let w = x0 + size + 90.0;
+    let h = y0 + size + 54.0;
+    let mut s = Svg::new(
+        w,
+        h,
+        title,
+        &format!("{p} × {p} matrix, colour = value ({unit}); hover a cell for its value"),
+    );
+    s.text(x0, 16.0, title, "start", "chart-title");
+    s.text(x0, 31.0, "column channel →", "start", "axis-label");
+    s.vtext(10.0, y0 + size / 2.0, "row channel", "axis-label");
+    for (i, row) in m.iter().enumerate() {
+        for (j, &v) in row.iter().enumerate() {
+            let color = if diverge {
+                diverging(v, scale)
+            } else {
+                sequential(v, scale)
+            };
+            s.rect_titled(
+                x0 + j as f64 * cell,
+                y0 + i as f64 * cell,
+                cell,
+                cell,
+                &color,
+                &format!("{} × {}: {} {unit}", names[i], names[j], fmt_tick(v)),
+            );
+        }
+    }
+    for [a, b] in marks {
+        for (i, j) in [(*a, *b), (*b, *a)] {
+            let (cx, cy) = (x0 + (j as f64 + 0.5) * cell, y0 + (i as f64 + 0.5) * cell);
+            let r = cell * 0.35;
+            s.line(cx - r, cy - r, cx + r, cy + r, "#111", 1.2);
+            s.line(cx - r, cy + r, cx + r, cy - r, "#111", 1.2);
+        }
+    }
+    if cell >= 7.0 {
+        for (k, n) in names.iter().enumerate() {
+            s.text(x0 - 4.0, y0 + (k as f64 + 0.7) * cell, n, "end", "tick");
+            s.slanted(x0 + (k as f64 + 0.6) * cell, y0 + size + 10.0, n, "tick");
+        }
+    }
+    // Legend bar.
+    let (lx, ly, lh) = (x0 + size + 18.0, y0, size.max(60.0));
+    let steps = 24;
+    for k in 0..steps {
+        let t = 1.0 - (k as f64 + 0.5) / steps as f64;
+        let v = if diverge {
+            (2.0 * t - 1.0) * scale
+        } else {
+            t * scale
+        };
+        let color = if diverge {
+            diverging(v, scale)
+        } else {
+            sequential(v, scale)
+        };
+        s.rect(
+            lx,
+            ly + k as f64 * lh / steps as f64,
+            12.0,
+            lh / steps as f64 + 0.5,
+            &color,
+            "",
+        );
+    }
+    let (top, bottom) = if diverge {
+        (scale, -scale)
+    } else {
+        (scale, 0.0)
+    };
+    s.text(lx + 16.0, ly + 9.0, &fmt_tick(top), "start", "tick");
+    s.text(lx + 16.0, ly + lh, &fmt_tick(bottom), "start", "tick");
+    s.vtext(lx + 56.0, ly + lh / 2.0, unit, "axis-label");
+    s.finish()
+}
+
+/// Dot-and-interval chart: one row per scheme, median dot and IQR line.
+fn ranking_chart(
+    scores: &[(String, f64, f64, f64)],
+    best: Option<&str>,
+    title: &str,
+    xlabel: &str,
+) -> String {
+    let n = scores.len();
+    let (x0, y0, w_plot, row) = (190.0, 34.0, 620.0, 22.0);
+    let h = y0 + row * n as f64 + 52.0;
+    let lo = scores
+        .iter()
+        .map(|s| s.2)
+        .fold(f64::INFINITY, f64::min)
+        .min(0.0);
+    let hi = scores.iter().map(|s| s.3).fold(0.0f64, f64::max) * 1.05;
+    let hi = if hi > lo { hi } else { lo + 1.0 };
+    let x = |v: f64| x0 + (v - lo) / (hi - lo) * w_plot;
+    let mut s = Svg::new(
+        x0 + w_plot + 30.0,
+        h,
+        title,
+        "median (dot) and interquartile range (line) per scheme; lower is better",
+    );
+    s.text(x0, 16.0, title, "start", "chart-title");
+    for t in ticks(lo, hi, 6) {
+        s.line(x(t), y0 - 6.0, x(t), y0 + row * n as f64, "#e4e1da", 1.0);
+        s.text(
+            x(t),
+            y0 + row * n as f64 + 14.0,
+            &fmt_tick(t),
+            "middle",
+            "tick",
+        );
+    }
+    s.text(x0 + w_plot / 2.0, h - 10.0, xlabel, "middle", "axis-label");
+    for (k, (name, med, q1, q3)) in scores.iter().enumerate() {
+        let y = y0 + (k as f64 + 0.5) * row;
+        let star = best == Some(name.as_str());
+        s.text(
+            x0 - 8.0,
+            y + 4.0,
+            &format!("{}{name}", if star { "★ " } else { "" }),
+            "end",
+            "axis-label",
+        );
+        s.line(x(*q1), y, x(*q3), y, "#1d1d1f", 2.0);
+        s.circle(
+            x(*med),
+            y,
+            if star { 5.5 } else { 4.0 },
+            if star { "#b22d30" } else { "#0e3e52" },
+            &format!("{name}: median {med:.4}, IQR {q1:.4}–{q3:.4}"),
+        );
+    }
+    s.finish()
+}
+
+/// Horizontal bars per channel, with optional [lo, hi] whiskers.
+fn bars(
+    names: &[String],
+    values: &[f64],
+    whiskers: Option<&[Option<[f64; 2]>]>,
+    title: &str,
+    xlabel: &str,
+    color: &str,
+) -> String {
+    let n = names.len();
+    let (x0, y0, w_plot, row) = (70.0, 30.0, 260.0, 14.0);
+    let h = y0 + row * n as f64 + 44.0;
+    let mut hi = values
+        .iter()
+        .copied()
+        .filter(|v| v.is_finite())
+        .fold(0.0f64, f64::max);
+    if let Some(ws) = whiskers {
+        for w in ws.iter().flatten() {
+            hi = hi.max(w[1]);
+        }
+    }
+    let hi = if hi > 0.0 { hi * 1.05 } else { 1.0 };
+    let x = |v: f64| x0 + v / hi * w_plot;
+    let mut s = Svg::new(
+        x0 + w_plot + 20.0,
+        h,
+        title,
+        &format!("one bar per channel: {xlabel}"),
+    );
+    s.text(x0, 14.0, title, "start", "chart-title");
+    for t in ticks(0.0, hi, 4) {
+        s.line(x(t), y0 - 4.0, x(t), y0 + row * n as f64, "#e4e1da", 1.0);
+        s.text(
+            x(t),
+            y0 + row * n as f64 + 12.0,
+            &fmt_tick(t),
+            "middle",
+            "tick",
+        );
+    }
+    s.text(x0 + w_plot / 2.0, h - 8.0, xlabel, "middle", "axis-label");
+    for (k, name) in names.iter().enumerate() {
+        let y = y0 + k as f64 * row;
+        s.text(x0 - 4.0, y + row * 0.75, name, "end", "tick");
+        let v = values[k];
+        if v.is_finite() {
+            s.rect_titled(
+                x0,
+                y + 2.0,
+                x(v) - x0,
+                row - 4.0,
+                color,
+                &format!("{name}: {}", fmt_tick(v)),
+            );
+        }
+        if let Some(Some([a, b])) = whiskers.map(|w| w[k]) {
+            s.line(x(a), y + row / 2.0, x(b), y + row / 2.0, "#1d1d1f", 1.2);
+            s.line(x(a), y + 3.0, x(a), y + row - 3.0, "#1d1d1f", 1.2);
+            s.line(x(b), y + 3.0, x(b), y + row - 3.0, "#1d1d1f", 1.2);
+        }
+    }
+    s.finish()
+}
+
+/// Convergence: one line per iterative scheme, value per iteration on a log axis.
+fn convergence(series: &[(String, Vec<(f64, f64)>)], title: &str, ylabel: &str) -> String {
+    let (x0, y0, w_plot, h_plot) = (70.0, 30.0, 470.0, 220.0);
+    let pts: Vec<f64> = series
+        .iter()
+        .flat_map(|(_, s)| s.iter().map(|p| p.1))
+        .filter(|v| *v > 0.0 && v.is_finite())
+        .collect();
+    let (mut lo, mut hi) = (
+        pts.iter().copied().fold(f64::INFINITY, f64::min),
+        pts.iter().copied().fold(0.0f64, f64::max),
+    );
+    if !(lo > 0.0) || !(hi > lo) {
+        lo = 1e-12;
+        hi = 1.0;
+    }
+    let (llo, lhi) = (
+        lo.log10().floor(),
+        hi.log10().ceil().max(lo.log10().floor() + 1.0),
+    );
+    let max_it = series
+        .iter()
+        .flat_map(|(_, s)| s.iter().map(|p| p.0))
+        .fold(1.0f64, f64::max);
+    let x = |i: f64| x0 + i / max_it * w_plot;
+    let y = |v: f64| y0 + h_plot - (v.log10() - llo) / (lhi - llo) * h_plot;
+    let mut s = Svg::new(
+        x0 + w_plot + 190.0,
+        y0 + h_plot + 46.0,
+        title,
+        &format!("{ylabel} against iteration, logarithmic vertical axis"),
+    );
+    s.text(x0, 16.0, title, "start", "chart-title");
+    let mut e = llo;
+    while e <= lhi + 1e-9 {
+        let v = 10f64.powf(e);
+        s.line(x0, y(v), x0 + w_plot, y(v), "#e4e1da", 1.0);
+        s.text(x0 - 6.0, y(v) + 3.0, &format!("1e{e:.0}"), "end", "tick");
+        e += ((lhi - llo) / 6.0).ceil().max(1.0);
+    }
+    for t in ticks(0.0, max_it, 6) {
+        s.text(x(t), y0 + h_plot + 14.0, &fmt_tick(t), "middle", "tick");
+    }
+    s.text(
+        x0 + w_plot / 2.0,
+        y0 + h_plot + 36.0,
+        "iteration (count)",
+        "middle",
+        "axis-label",
+    );
+    s.vtext(16.0, y0 + h_plot / 2.0, ylabel, "axis-label");
+    let palette = [
+        "#0e3e52", "#b22d30", "#e08214", "#35978f", "#542788", "#878787", "#4393c3", "#7b3294",
+        "#d6604d", "#1b7837",
+    ];
+    for (k, (name, pts)) in series.iter().enumerate() {
+        let color = palette[k % palette.len()];
+        let dash = k >= palette.len() / 2;
+        let p: Vec<(f64, f64)> = pts
+            .iter()
+            .filter(|p| p.1 > 0.0 && p.1.is_finite())
+            .map(|&(i, v)| (x(i), y(v)))
+            .collect();
+        s.polyline(&p, color, dash);
+        let ly = y0 + 6.0 + k as f64 * 15.0;
+        s.line(x0 + w_plot + 14.0, ly, x0 + w_plot + 34.0, ly, color, 2.0);
+        s.text(
+            x0 + w_plot + 40.0,
+            ly + 4.0,
+            &format!("{name}{}", if dash { " (dashed)" } else { "" }),
+            "start",
+            "legend",
+        );
+    }
+    s.finish()
+}
+
+/// Dropout raster: epochs across, channels down, a cell per masked
+/// (epoch, channel) coloured and lettered by reason, sessions separated.
+fn raster(epochs: &Value, names: &[String]) -> Option<String> {
+    let list = epochs["epochs"].as_array()?;
+    let n = list.len();
+    let p = names.len();
+    if n == 0 || p == 0 {
+        return None;
+    }
+    let cw = (1080.0 / n as f64).clamp(1.0, 16.0);
+    let ch = 12.0;
+    let (x0, y0) = (56.0, 36.0);
+    let w = x0 + cw * n as f64 + 20.0;
+    let h = y0 + ch * p as f64 + 70.0;
+    let mut s = Svg::new(
+        w,
+        h,
+        "Dropout raster",
+        "masked (epoch, channel) cells coloured and lettered by reason; vertical lines separate sessions",
+    );
+    s.text(
+        x0,
+        16.0,
+        "Which channel each epoch lost, and why",
+        "start",
+        "chart-title",
+    );
+    s.rect(
+        x0,
+        y0,
+        cw * n as f64,
+        ch * p as f64,
+        "#ffffff",
+        " stroke=\"#d9d6cf\"",
+    );
+    let mut last_session = String::new();
+    for (e, ep) in list.iter().enumerate() {
+        let session = ep["session"].as_str().unwrap_or("").to_string();
+        if session != last_session {
+            let x = x0 + e as f64 * cw;
+            s.line(x, y0 - 4.0, x, y0 + ch * p as f64, "#1d1d1f", 1.0);
+            s.text(x + 2.0, y0 - 6.0, &session, "start", "tick");
+            last_session = session;
+        }
+        for m in ep["masked"].as_array().into_iter().flatten() {
+            let ch_name = m["channel"].as_str().unwrap_or("");
+            let reason = m["reason"].as_str().unwrap_or("");
+            let Some(c) = names.iter().position(|n| n == ch_name) else {
+                continue;
+            };
+            let (code, color) = REASONS
+                .iter()
+                .find(|r| r.0 == reason)
+                .map_or(("?", "#444"), |r| (r.1, r.2));
+            let (x, y) = (x0 + e as f64 * cw, y0 + c as f64 * ch);
+            s.rect_titled(
+                x,
+                y,
+                cw,
+                ch,
+                color,
+                &format!("epoch {e}, {ch_name}: {reason}"),
+            );
+            if cw >= 8.0 {
+                s.text(x + cw / 2.0, y + ch - 3.0, code, "middle", "cell-code");
+            }
+        }
+    }
+    for (c, name) in names.iter().enumerate() {
+        s.text(x0 - 4.0, y0 + (c as f64 + 0.8) * ch, name, "end", "tick");
+    }
+    s.text(
+        x0 + cw * n as f64 / 2.0,
+        y0 + ch * p as f64 + 16.0,
+        "epoch (index, in recording order)",
+        "middle",
+        "axis-label",
+    );
+    s.vtext(12.0, y0 + ch * p as f64 / 2.0, "channel", "axis-label");
+    let mut lx = x0;
+    let ly = y0 + ch * p as f64 + 34.0;
+    for (name, code, color) in REASONS {
+        s.rect(lx, ly, 12.0, 12.0, color, "");
+        s.text(lx + 6.0, ly + 9.0, code, "middle", "cell-code");
+        s.text(lx + 16.0, ly + 10.0, name, "start", "legend");
+        lx += 28.0 + name.len() as f64 * 6.2;
+    }
+    Some(s.finish())
+}
+
+fn section(title: &str, body: &str) -> String {
+    format!("<section><h2>{}</h2>{body}</section>", escape(title))
+}
+
+fn figure(svg: &str, caption: &str) -> String {
+    format!(
+        "<figure>{svg}<figcaption>{}</figcaption></figure>",
+        escape(caption)
+    )
+}
+
+/// Renders the report from compare.json (and, optionally, epochs.json).
+pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
+    let names = strings(&compare["channels"]);
+    let p = names.len();
+    let rec = &compare["recommendation"];
+    let best = rec["scheme"].as_str();
+    let mut body = String::new();
+    body.push_str(&format!(
+        "<header><h1>lacuna report</h1><p>{} trials × {p} channels · {} schemes compared · seed {} · lacuna {}</p></header>",
+        compare["trials"],
+        compare["schemes"].as_array().map_or(0, Vec::len),
+        compare["seed"],
+        escape(compare["lacuna_version"].as_str().unwrap_or("?"))
+    ));
+    body.push_str("<p class=\"caution\"><strong>Research software, not a medical device.</strong> These results inform analysis; they do not diagnose. Follow your local rules and licensed clinical practice.</p>");
+
+    // Recommendation and ranking.
+    let mut sec = String::new();
+    let verdict = match (best, rec["clear"].as_bool()) {
+        (Some(b), Some(true)) => format!("Recommended: {b}"),
+        (Some(b), _) => format!(
+            "No clear winner — best on simulated dropout: {b} (tied: {})",
+            strings(&rec["tied"]).join(", ")
+        ),
+        _ => "No recommendation (validation not run or no scheme completed it)".into(),
+    };
+    sec.push_str(&format!(
+        "<p class=\"verdict\">{}</p><ul class=\"reasons\">",
+        escape(&verdict)
+    ));
+    for r in strings(&rec["reasons"]) {
+        sec.push_str(&format!("<li>{}</li>", escape(&r)));
+    }
+    sec.push_str("</ul>");
+    let mut scores: Vec<(String, f64, f64, f64)> = compare["simulated_dropout"]["scores"]
+        .as_array()
+        .into_iter()
+        .flatten()
+        .filter(|s| s["partial_channels"].is_null())
+        .filter_map(|s| {
+            Some((
+                s["scheme"].as_str()?.to_string(),
+                f(&s["median"])?,
+                f(&s["q1"])?,
+                f(&s["q3"])?,
+            ))
+        })
+        .collect();
+    scores.sort_by(|a, b| a.1.total_cmp(&b.1));
+    if !scores.is_empty() {
+        sec.push_str(&figure(
+            &ranking_chart(&scores, best, "Simulated dropout: distance to the complete-data reference", "affine-invariant distance to the reference (dimensionless)"),
+            "Each scheme averaged the complete trials after the data's own dropout patterns were imposed on them again; dot = median over repeats, line = interquartile range. ★ marks the recommendation.",
+        ));
+    }
+    body.push_str(&section("Which scheme to trust", &sec));
+
+    // Dropout and coverage.
+    let mut sec = String::new();
+    if let Some(ep) = epochs {
+        let ep_names = strings(&ep["channels"]);
+        if let Some(svg) = raster(ep, &ep_names) {
+            sec.push_str(&figure(&svg, "Letters repeat the colours: N non-finite, R railed, F flat, D deviation, H high-frequency noise, U uncorrelated, X marked by the user."));
+        }
+    }
+    if let Some(co) = matrix(&compare["coobservation"]) {
+        let marks: Vec<[usize; 2]> = compare["unconstrained_pairs"]
+            .as_array()
+            .into_iter()
+            .flatten()
+            .filter_map(|v| Some([v[0].as_u64()? as usize, v[1].as_u64()? as usize]))
+            .collect();
+        let max = co.iter().flatten().copied().fold(0.0f64, f64::max);
+        let cell = (640.0 / p as f64).clamp(4.0, 22.0);
+        sec.push_str(&figure(
+            &heatmap(&co, &names, "Co-observation: trials observing both channels", "trials", max, false, &marks, cell),
+            "The diagonal is each channel's coverage. × marks pairs never observed together: the data do not pin their covariance, and airm-observed fills it by the maximum-determinant completion.",
+        ));
+    }
+    body.push_str(&section("Dropout and coverage", &sec));
+
+    // Means and differences.
+    let rows: Vec<&Value> = compare["schemes"]
+        .as_array()
+        .into_iter()
+        .flatten()
+        .filter(|s| s["status"] == "ok")
+        .collect();
+    let means: Vec<(String, Vec<Vec<f64>>)> = rows
+        .iter()
+        .filter_map(|s| Some((s["scheme"].as_str()?.to_string(), matrix(&s["mean"])?)))
+        .collect();
+    let mut sec = String::new();
+    if !means.is_empty() {
+        let scale = means
+            .iter()
+            .flat_map(|(_, m)| m.iter().flatten().copied())
+            .filter(|v| v.is_finite())
+            .fold(0.0f64, |a, v| a.max(v.abs()));
+        let cell = (300.0 / p as f64).clamp(3.0, 12.0);
+        sec.push_str("<p class=\"note\">All maps share one diverging colour scale, symmetric about zero, in the data's squared units.</p><div class=\"grid\">");
+        for (name, m) in &means {
+            sec.push_str(&heatmap(
+                m,
+                &names,
+                &format!("Mean: {name}"),
+                "covariance (data units²)",
+                scale,
+                true,
+                &[],
+                cell,
+            ));
+        }
+        sec.push_str("</div>");
+        if let Some(b) = best
+            && let Some((_, reference)) = means.iter().find(|(n, _)| n == b)
+        {
+            let diffs: Vec<(String, Vec<Vec<f64>>)> = means
+                .iter()
+                .filter(|(n, _)| n != b)
+                .map(|(n, m)| {
+                    (
+                        n.clone(),
+                        m.iter()
+                            .zip(reference)
+                            .map(|(r, q)| r.iter().zip(q).map(|(x, y)| x - y).collect())
+                            .collect(),
+                    )
+                })
+                .collect();
+            let dscale = diffs
+                .iter()
+                .flat_map(|(_, m)| m.iter().flatten().copied())
+                .filter(|v| v.is_finite())
+                .fold(0.0f64, |a, v| a.max(v.abs()));
+            sec.push_str(&format!(
+                "<h3>Differences from the recommended scheme ({})</h3><div class=\"grid\">",
+                escape(b)
+            ));
+            for (name, m) in &diffs {
+                sec.push_str(&heatmap(
+                    m,
+                    &names,
+                    &format!("{name} − {b}"),
+                    "difference (data units²)",
+                    dscale,
+                    true,
+                    &[],
+                    cell,
+                ));
+            }
+            sec.push_str("</div>");
+        }
+    }
+    body.push_str(&section("The means", &sec));
+
+    // Convergence.
+    let grad: Vec<(String, Vec<(f64, f64)>)> = rows
+        .iter()
+        .filter_map(|s| {
+            let t = s["trace"].as_array()?;
+            if t.len() < 2 {
+                return None;
+            }
+            Some((
+                s["scheme"].as_str()?.to_string(),
+                t.iter()
+                    .filter_map(|r| Some((f(&r["iteration"])?, f(&r["gradient_norm"])?)))
+                    .collect(),
+            ))
+        })
+        .collect();
+    let cost: Vec<(String, Vec<(f64, f64)>)> = rows
+        .iter()
+        .filter_map(|s| {
+            let t = s["trace"].as_array()?;
+            let last = f(&t.last()?["cost"])?;
+            if t.len() < 2 {
+                return None;
+            }
+            Some((
+                s["scheme"].as_str()?.to_string(),
+                t.iter()
+                    .filter_map(|r| {
+                        Some((
+                            f(&r["iteration"])?,
+                            (f(&r["cost"])? - last).abs() / last.abs().max(1e-300),
+                        ))
+                    })
+                    .collect(),
+            ))
+        })
+        .collect();
+    let mut sec = String::new();
+    if !grad.is_empty() {
+        sec.push_str(&figure(&convergence(&grad, "Gradient norm per iteration", "relative gradient norm (dimensionless)"), "The stopping rule is met when the curve crosses the tolerance; EM reports its relative change instead."));
+        sec.push_str(&figure(
+            &convergence(
+                &cost,
+                "Cost above its final value",
+                "(cost − final) / final (dimensionless)",
+            ),
+            "Each scheme's own cost: the masked or Karcher cost, or EM's negative log-likelihood.",
+        ));
+    } else {
+        sec.push_str("<p class=\"note\">No iterative scheme recorded a trace.</p>");
+    }
+    body.push_str(&section("Convergence", &sec));
+
+    // Contributions.
+    let mut sec = String::new();
+    if let Some(cs) = compare["contributions"].as_array() {
+        let ch: Vec<String> = cs
+            .iter()
+            .map(|c| c["channel"].as_str().unwrap_or("?").to_string())
+            .collect();
+        let get = |k: &str| {
+            cs.iter()
+                .map(|c| f(&c[k]).unwrap_or(f64::NAN))
+                .collect::<Vec<f64>>()
+        };
+        let interval: Vec<Option<[f64; 2]>> = cs
+            .iter()
+            .map(|c| {
+                let v = f(&c["variance"])?;
+                let iv = c["variance_interval"].as_array()?;
+                Some([iv[0].as_f64()? / v, iv[1].as_f64()? / v])
+            })
+            .collect();
+        let ones: Vec<f64> = cs.iter().map(|_| 1.0).collect();
+        sec.push_str("<div class=\"grid\">");
+        sec.push_str(&bars(
+            &ch,
+            &get("weight_share"),
+            None,
+            "Weight share",
+            "share of total trial weight (fraction)",
+            "#0e3e52",
+        ));
+        sec.push_str(&bars(
+            &ch,
+            &get("cost_share"),
+            None,
+            "Cost share",
+            "share of the masked cost (fraction)",
+            "#b22d30",
+        ));
+        sec.push_str(&bars(
+            &ch,
+            &get("leave_out_influence"),
+            None,
+            "Leave-one-out influence",
+            "distance when left out (dimensionless)",
+            "#e08214",
+        ));
+        if interval.iter().any(Option::is_some) {
+            sec.push_str(&bars(
+                &ch,
+                &ones,
+                Some(&interval),
+                "Bootstrap spread of the variance",
+                "variance / estimate, 5–95% interval (ratio)",
+                "#d9d6cf",
+            ));
+        }
+        sec.push_str("</div><p class=\"note\">A channel with a large cost share disagrees with the rest (noise, poor contact); a large leave-one-out influence means the mean leans on it; a small weight share means few trials observed it.</p>");
+    } else {
+        sec.push_str(
+            "<p class=\"note\">Contributions were not computed (airm-observed did not run).</p>",
+        );
+    }
+    body.push_str(&section("What each channel contributed", &sec));
+
+    // Table of schemes.
+    let mut t = String::from(
+        "<table><tr><th>scheme</th><th>converged</th><th>iterations</th><th>seconds</th><th>condition number</th><th>dispersion</th><th>log-det gap</th><th>channels</th></tr>",
+    );
+    for s in compare["schemes"].as_array().into_iter().flatten() {
+        if s["status"] == "ok" {
+            t.push_str(&format!(
+                "<tr><td>{}</td><td>{}</td><td>{}</td><td>{:.2}</td><td>{:.3e}</td><td>{:.4}</td><td>{:.4}</td><td>{}</td></tr>",
+                escape(s["scheme"].as_str().unwrap_or("?")),
+                s["converged"],
+                s["iterations"],
+                f(&s["seconds"]).unwrap_or(f64::NAN),
+                f(&s["condition_number"]).unwrap_or(f64::NAN),
+                f(&s["dispersion"]).unwrap_or(f64::NAN),
+                f(&s["log_det_gap"]).unwrap_or(f64::NAN),
+                s["estimated_channels"]
+            ));
+        } else {
+            t.push_str(&format!(
+                "<tr><td>{}</td><td colspan=\"7\">not applicable: {}</td></tr>",
+                escape(s["scheme"].as_str().unwrap_or("?")),
+                escape(s["reason"].as_str().unwrap_or(""))
+            ));
+        }
+    }
+    t.push_str("</table>");
+    body.push_str(&section("All schemes", &t));
+    format!(
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"/><meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"/><title>lacuna report</title><style>{CSS}</style></head><body><main>{body}</main></body></html>\n"
+    )
+}
