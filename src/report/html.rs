@@ -210,6 +210,13 @@ fn ranking_chart(
         );
     }
     s.text(x0 + w_plot / 2.0, h - 10.0, xlabel, "middle", "axis-label");
+    s.text(
+        8.0,
+        y0 - 12.0,
+        "scheme (★ recommended)",
+        "start",
+        "axis-label",
+    );
     for (k, (name, med, q1, q3)) in scores.iter().enumerate() {
         let y = y0 + (k as f64 + 0.5) * row;
         let star = best == Some(name.as_str());
@@ -242,7 +249,7 @@ fn bars(
     color: &str,
 ) -> String {
     let n = names.len();
-    let (x0, y0, w_plot, row) = (70.0, 30.0, 260.0, 14.0);
+    let (x0, y0, w_plot, row) = (74.0, 30.0, 260.0, 14.0);
     let h = y0 + row * n as f64 + 44.0;
     let mut hi = values
         .iter()
@@ -274,6 +281,7 @@ fn bars(
         );
     }
     s.text(x0 + w_plot / 2.0, h - 8.0, xlabel, "middle", "axis-label");
+    s.vtext(10.0, y0 + row * n as f64 / 2.0, "channel", "axis-label");
     for (k, name) in names.iter().enumerate() {
         let y = y0 + k as f64 * row;
         s.text(x0 - 4.0, y + row * 0.75, name, "end", "tick");

@@ -1,0 +1,230 @@
+//! The HTML report: rendered from the demo, checked as a document, and
+//! rendered by a real browser when one is installed (`.ci/run` installs
+//! Debian's chromium). Checks are common practice, no source.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::sync::OnceLock;
+
+fn lacuna(args: &[&str]) -> (i32, String, String) {
+    let out = Command::new(env!("CARGO_BIN_EXE_lacuna"))
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into(),
+        String::from_utf8_lossy(&out.stderr).into(),
+    )
+}
+
+fn demo(f: &str) -> String {
+    format!("{}/demo-data/recording/{f}", env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Extract + compare + report on the demo once per test binary.
+fn demo_report() -> &'static (PathBuf, String) {
+    static REPORT: OnceLock<(PathBuf, String)> = OnceLock::new();
+    REPORT.get_or_init(|| {
+        let dir = std::env::temp_dir().join(format!("lacuna-report-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&dir);
+        std::fs::create_dir_all(&dir).unwrap();
+        let trials = dir.join("trials");
+        let s = |p: &Path| p.to_str().unwrap().to_string();
+        let (code, _, err) = lacuna(&[
+            "extract",
+            &demo("session-1.edf"),
+            &demo("session-2.edf"),
+            &demo("session-3.edf"),
+            "--offset",
+            "0.5",
+            "--length",
+            "2",
+            "--band",
+            "8-30",
+            "--out",
+            &s(&trials),
+            "--quiet",
+        ]);
+        assert_eq!(code, 0, "{err}");
+        let cmp = dir.join("cmp");
+        let (code, _, err) = lacuna(&[
+            "compare",
+            "--covs",
+            &s(&trials.join("covs.npy")),
+            "--mask",
+            &s(&trials.join("mask.csv")),
+            "--labels",
+            &s(&trials.join("labels.csv")),
+            "--positions",
+            &demo("positions.csv"),
+            "--repeats",
+            "6",
+            "--bootstrap",
+            "4",
+            "--out",
+            &s(&cmp),
+            "--quiet",
+        ]);
+        assert_eq!(code, 0, "{err}");
+        let html = dir.join("report.html");
+        let (code, _, err) = lacuna(&[
+            "report",
+            "--compare",
+            &s(&cmp),
+            "--epochs",
+            &s(&trials.join("epochs.json")),
+            "--out",
+            &s(&html),
+        ]);
+        assert_eq!(code, 0, "{err}");
+        let text = std::fs::read_to_string(&html).unwrap();
+        (html, text)
+    })
+}
+
+#[test]
+fn report_is_well_formed_and_self_contained() {
+    let (_, html) = demo_report();
+    // Well-formed: the markup (minus the HTML5 doctype line) parses as XML.
+    let body = html
+        .strip_prefix("<!DOCTYPE html>\n")
+        .expect("doctype first");
+    let doc = roxmltree::Document::parse(body).expect("well-formed markup");
+    let svgs: Vec<_> = doc
+        .descendants()
+        .filter(|n| n.has_tag_name(("http://www.w3.org/2000/svg", "svg")))
+        .collect();
+    assert!(
+        svgs.len() >= 8,
+        "expected the charts, found {} svg elements",
+        svgs.len()
+    );
+    for svg in &svgs {
+        // Every chart has a title, and every chart with axes names them.
+        let title = svg
+            .children()
+            .find(|c| c.has_tag_name(("http://www.w3.org/2000/svg", "title")))
+            .and_then(|t| t.text())
+            .unwrap_or("");
+        assert!(!title.is_empty(), "an svg without a title");
+        let labels: Vec<&str> = svg
+            .descendants()
+            .filter(|n| n.attribute("class") == Some("axis-label"))
+            .filter_map(|n| n.text())
+            .collect();
+        assert!(
+            labels.len() >= 2,
+            "{title}: axis labels missing ({labels:?})"
+        );
+        // Units: every chart names a unit in parentheses or a unit word.
+        assert!(
+            labels
+                .iter()
+                .any(|l| l.contains('(') || *l == "trials" || l.contains("channel")),
+            "{title}: no unit in {labels:?}"
+        );
+    }
+    // Self-contained: no scripts, no external resources.
+    assert!(
+        doc.descendants().all(|n| !n.has_tag_name("script")
+            && !n.has_tag_name("link")
+            && !n.has_tag_name("img"))
+    );
+    let without_ns = html.replace("xmlns=\"http://www.w3.org/2000/svg\"", "");
+    assert!(
+        !without_ns.contains("http://")
+            && !without_ns.contains("https://")
+            && !without_ns.contains("url(")
+    );
+    // The caution, the print CSS, reasons as letters as well as colours.
+    assert!(html.contains("Research software, not a medical device"));
+    assert!(html.contains("@media print"));
+    assert!(
+        html.contains("class=\"cell-code\">R</text>")
+            || html.contains("class=\"cell-code\">D</text>")
+    );
+    assert!(html.contains("Recommended: airm-observed"));
+}
+
+fn find_browser() -> Option<String> {
+    ["chromium", "chromium-browser", "google-chrome"]
+        .iter()
+        .find_map(|b| {
+            Command::new(b)
+                .arg("--version")
+                .output()
+                .ok()
+                .filter(|o| o.status.success())
+                .map(|_| b.to_string())
+        })
+}
+
+// A real browser renders the page: the screenshot is not blank and the
+// console reports no errors. `.ci/run` installs chromium; without one (and
+// without LACUNA_REQUIRE_BROWSER=1) the test says so and passes.
+#[test]
+fn browser_renders_the_report() {
+    let Some(browser) = find_browser() else {
+        assert!(
+            std::env::var("LACUNA_REQUIRE_BROWSER").is_err(),
+            "LACUNA_REQUIRE_BROWSER is set but no chromium was found"
+        );
+        eprintln!("SKIPPED: no chromium on this machine (.ci/run installs it)");
+        return;
+    };
+    let (html, _) = demo_report();
+    let shot = html.with_extension("png");
+    let out = Command::new(&browser)
+        .args([
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--hide-scrollbars",
+            "--enable-logging=stderr",
+            "--v=0",
+            "--window-size=1280,2400",
+            &format!("--screenshot={}", shot.display()),
+            &format!("file://{}", html.display()),
+        ])
+        .output()
+        .expect("run the browser");
+    let log = String::from_utf8_lossy(&out.stderr);
+    assert!(shot.exists(), "no screenshot; browser said:\n{log}");
+    // Console messages from the page are logged as "CONSOLE" lines.
+    let console_errors: Vec<&str> = log
+        .lines()
+        .filter(|l| l.contains("CONSOLE") && (l.contains("ERROR") || l.contains("Uncaught")))
+        .collect();
+    assert!(
+        console_errors.is_empty(),
+        "console errors: {console_errors:?}"
+    );
+    // Not blank: many distinct colours, and plenty of non-background pixels.
+    let decoder = png::Decoder::new(std::fs::File::open(&shot).unwrap());
+    let mut reader = decoder.read_info().unwrap();
+    let mut buf = vec![0; reader.output_buffer_size()];
+    let info = reader.next_frame(&mut buf).unwrap();
+    assert_eq!(info.width, 1280);
+    let channels = info.line_size / info.width as usize;
+    let bytes = &buf[..info.buffer_size()];
+    let mut colours = std::collections::HashSet::new();
+    let mut ink = 0usize;
+    for px in bytes.chunks(channels) {
+        colours.insert((px[0], px[1], px[2]));
+        if (px[0] as i32 - 251).abs() + (px[1] as i32 - 250).abs() + (px[2] as i32 - 247).abs() > 30
+        {
+            ink += 1;
+        }
+    }
+    let total = (info.width * info.height) as usize;
+    assert!(
+        colours.len() > 50,
+        "only {} colours: blank page?",
+        colours.len()
+    );
+    assert!(
+        ink > total / 50,
+        "only {ink} of {total} pixels differ from the page background"
+    );
+}
