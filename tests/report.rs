@@ -22,7 +22,8 @@ fn demo(f: &str) -> String {
     format!("{}/demo-data/recording/{f}", env!("CARGO_MANIFEST_DIR"))
 }
 
-/// Extract + compare + report on the demo once per test binary.
+/// Extract + compare + report on the demo once per test binary; returns
+/// the report's path (its folder also holds trials/ and cmp/) and text.
 fn demo_report() -> &'static (PathBuf, String) {
     static REPORT: OnceLock<(PathBuf, String)> = OnceLock::new();
     REPORT.get_or_init(|| {
@@ -227,4 +228,114 @@ fn browser_renders_the_report() {
         ink > total / 50,
         "only {ink} of {total} pixels differ from the page background"
     );
+}
+
+/// Every path written in `doc` (see docs/report-schema.md for the notation).
+fn paths(
+    v: &serde_json::Value,
+    prefix: &str,
+    maps: &[&str],
+    out: &mut std::collections::BTreeSet<String>,
+) {
+    match v {
+        serde_json::Value::Object(m) => {
+            for (k, x) in m {
+                let key = if maps.contains(&prefix) {
+                    "*"
+                } else {
+                    k.as_str()
+                };
+                let p = if prefix.is_empty() {
+                    key.to_string()
+                } else {
+                    format!("{prefix}.{key}")
+                };
+                paths(x, &p, maps, out);
+            }
+        }
+        serde_json::Value::Array(a) => {
+            let p = format!("{prefix}[]");
+            if a.is_empty() {
+                out.insert(p.clone());
+            }
+            for x in a {
+                paths(x, &p, maps, out);
+            }
+        }
+        _ => {
+            out.insert(prefix.to_string());
+        }
+    }
+}
+
+fn schema(name: &str) -> Vec<String> {
+    let doc = std::fs::read_to_string(concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/docs/report-schema.md"
+    ))
+    .unwrap();
+    let start = doc
+        .find(&format!("```schema {name}\n"))
+        .expect("schema block");
+    let block = &doc[start..];
+    let block = &block[block.find('\n').unwrap() + 1..];
+    let block = &block[..block.find("```").unwrap()];
+    block
+        .lines()
+        .filter_map(|l| l.split_whitespace().next())
+        .map(str::to_string)
+        .collect()
+}
+
+fn check(name: &str, json: &serde_json::Value, maps: &[&str]) {
+    let listed = schema(name);
+    let mut written = std::collections::BTreeSet::new();
+    paths(json, "", maps, &mut written);
+    for p in &written {
+        // An empty array ("x[]") is covered by any listed path under it.
+        let ok = listed
+            .iter()
+            .any(|l| l == p || (p.ends_with("[]") && l.starts_with(p.as_str())));
+        assert!(
+            ok,
+            "{name}: field {p} is written but not in docs/report-schema.md"
+        );
+    }
+    assert!(written.len() > 10);
+}
+
+// Every field of every JSON output is in the versioned schema document.
+#[test]
+fn every_json_field_is_in_the_schema() {
+    let (html, _) = demo_report();
+    let dir = html.parent().unwrap();
+    let read = |p: &Path| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(p).unwrap()).unwrap()
+    };
+    let compare = read(&dir.join("cmp/compare.json"));
+    assert_eq!(compare["compare_version"], "1");
+    check("compare", &compare, &["stage_seconds"]);
+    let epochs = read(&dir.join("trials/epochs.json"));
+    assert_eq!(epochs["lacuna_epochs_version"], "1");
+    check("epochs", &epochs, &["summary.reasons"]);
+    let report = dir.join("mean-report.json");
+    let trials = dir.join("trials");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        trials.join("covs.npy").to_str().unwrap(),
+        "--mask",
+        trials.join("mask.csv").to_str().unwrap(),
+        "--starts",
+        "2",
+        "--out",
+        dir.join("m.csv").to_str().unwrap(),
+        "--report",
+        report.to_str().unwrap(),
+        "--quiet",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let mean = read(&report);
+    assert_eq!(mean["report_version"], "1");
+    check("mean", &mean, &[]);
 }

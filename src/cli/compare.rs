@@ -456,7 +456,7 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         "schemes": rows,
         "distances": {"schemes": labels, "matrix": distances},
         "simulated_dropout": dropout.as_ref().map(|d| json!({
-            "channels": d.channels, "complete_trials": d.complete_trials,
+            "channels": d.channels, "left_out": d.left_out, "complete_trials": d.complete_trials,
             "trials_per_repeat": d.trials_per_repeat, "repeats": d.repeats,
             "scores": d.scores.iter().map(spread_json).collect::<Vec<_>>(),
         })),
