@@ -7,6 +7,8 @@ use std::sync::Arc;
 use std::time::Instant;
 
 use clap::Args;
+
+use super::progress::Progress;
 use lacuna::diagnose::{ContributionOptions, contributions, identifiability};
 use lacuna::schemes::MeanResult;
 use lacuna::select::{
@@ -216,21 +218,19 @@ pub fn run(a: CompareArgs) -> Result<i32> {
             a.schemes.join(",")
         )));
     }
-    say(&format!(
-        "running {} schemes on {} trials × {p} channels",
-        candidates.len(),
-        set.len()
-    ));
     let mut timings: Vec<(&str, f64)> = Vec::new();
     let t0 = Instant::now();
+    let bar = Progress::new("schemes", candidates.len(), a.quiet);
     let results: Vec<(std::result::Result<MeanResult, String>, f64)> = candidates
         .par_iter()
         .map(|c| {
             let t = Instant::now();
             let r = c.run(&set).map_err(|e| e.to_string());
+            bar.step();
             (r, t.elapsed().as_secs_f64())
         })
         .collect();
+    bar.finish();
     timings.push(("schemes", t0.elapsed().as_secs_f64()));
     let ok: Vec<(usize, &MeanResult)> = results
         .iter()
@@ -257,17 +257,30 @@ pub fn run(a: CompareArgs) -> Result<i32> {
     let (dropout, fit, dec, rec) = if a.no_validation {
         (None, None, None, None)
     } else {
-        say(&format!("simulated dropout: {} repeats", a.repeats));
+        // One progress bar per protocol, advanced after each repeat or fold.
+        let with_bar = |label: &str, total: usize| {
+            let bar = Arc::new(Progress::new(label, total, a.quiet));
+            let b = bar.clone();
+            let opts = SelectOptions {
+                on_step: Some(Arc::new(move || b.step())),
+                ..sel_opts.clone()
+            };
+            (bar, opts)
+        };
         let t = Instant::now();
-        let dropout = simulated_dropout(&set, &candidates, &sel_opts)?;
+        let (bar, o) = with_bar("simulated dropout (repeats)", a.repeats);
+        let dropout = simulated_dropout(&set, &candidates, &o)?;
+        bar.finish();
         timings.push(("simulated_dropout", t.elapsed().as_secs_f64()));
-        say(&format!("held-out fit: {} folds", a.folds));
         let t = Instant::now();
-        let fit = held_out_fit(&set, &candidates, &sel_opts)?;
+        let (bar, o) = with_bar("held-out fit (folds)", a.folds);
+        let fit = held_out_fit(&set, &candidates, &o)?;
+        bar.finish();
         timings.push(("held_out_fit", t.elapsed().as_secs_f64()));
-        say("decoding check");
         let t = Instant::now();
-        let dec = decoding(&set, &candidates, &sel_opts)?;
+        let (bar, o) = with_bar("decoding (folds)", a.folds);
+        let dec = decoding(&set, &candidates, &o)?;
+        bar.finish();
         timings.push(("decoding", t.elapsed().as_secs_f64()));
         let rec = recommend(&dropout, Some(&fit), dec.as_ref());
         (Some(dropout), Some(fit), dec, Some(rec))

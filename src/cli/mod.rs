@@ -7,6 +7,7 @@
 mod compare;
 mod extract;
 mod mean;
+mod progress;
 mod report;
 mod synth;
 

@@ -151,8 +151,11 @@ pub struct DropoutValidation {
     pub scores: Vec<Score>,
 }
 
+/// Called after each repeat or fold of a protocol (progress display).
+pub type StepObserver = std::sync::Arc<dyn Fn() + Send + Sync>;
+
 /// Options of the protocols.
-#[derive(Debug, Clone)]
+#[derive(Clone)]
 pub struct SelectOptions {
     pub repeats: usize,
     pub folds: usize,
@@ -165,6 +168,29 @@ pub struct SelectOptions {
     /// over the classes, of the decoding check (a seeded random subset
     /// beyond that: the scores barely change, the cost does).
     pub max_train: usize,
+    /// Called after every repeat or fold.
+    pub on_step: Option<StepObserver>,
+}
+
+impl std::fmt::Debug for SelectOptions {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("SelectOptions")
+            .field("repeats", &self.repeats)
+            .field("folds", &self.folds)
+            .field("seed", &self.seed)
+            .field("min_complete", &self.min_complete)
+            .field("max_trials", &self.max_trials)
+            .field("max_train", &self.max_train)
+            .finish()
+    }
+}
+
+impl SelectOptions {
+    fn step(&self) {
+        if let Some(f) = &self.on_step {
+            f();
+        }
+    }
 }
 
 impl Default for SelectOptions {
@@ -176,6 +202,7 @@ impl Default for SelectOptions {
             min_complete: 20,
             max_trials: 200,
             max_train: 600,
+            on_step: None,
         }
     }
 }
@@ -287,6 +314,7 @@ pub fn simulated_dropout(
                 })
                 .collect()
         })
+        .inspect(|_| opts.step())
         .collect();
     let scores = candidates
         .iter()
@@ -418,6 +446,7 @@ pub fn held_out_fit(
                 })
                 .collect()
         })
+        .inspect(|_| opts.step())
         .collect();
     let scores = candidates
         .iter()
@@ -540,6 +569,7 @@ pub fn decoding(
                 })
                 .collect()
         })
+        .inspect(|_| opts.step())
         .collect();
     let scores = candidates
         .iter()
