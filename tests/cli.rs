@@ -2,54 +2,14 @@
 
 mod common;
 
+use common::{Dir, lacuna, s};
+
 use std::path::{Path, PathBuf};
-use std::process::Command;
 
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
 use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
 use lacuna::trials::npy::{encode_f64, encode_u8};
-
-struct Dir(PathBuf);
-
-impl Dir {
-    fn new(name: &str) -> Dir {
-        let d = std::env::temp_dir().join(format!("lacuna-cli-{name}-{}", std::process::id()));
-        let _ = std::fs::remove_dir_all(&d);
-        std::fs::create_dir_all(&d).unwrap();
-        Dir(d)
-    }
-    fn path(&self, f: &str) -> PathBuf {
-        self.0.join(f)
-    }
-    fn write(&self, f: &str, bytes: &[u8]) -> PathBuf {
-        let p = self.path(f);
-        std::fs::write(&p, bytes).unwrap();
-        p
-    }
-}
-
-impl Drop for Dir {
-    fn drop(&mut self) {
-        let _ = std::fs::remove_dir_all(&self.0);
-    }
-}
-
-fn lacuna(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_lacuna"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
-}
-
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
-}
 
 /// A small masked data set written as NaN-encoded stack + mask.
 fn write_set(d: &Dir, n: usize, p: usize, seed: u64) -> (PathBuf, PathBuf) {

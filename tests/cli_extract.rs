@@ -1,48 +1,9 @@
 //! End-to-end tests of `lacuna extract` and `lacuna synth --scenario recording`.
 
-use std::path::{Path, PathBuf};
-use std::process::Command;
+mod common;
 
-struct Dir(PathBuf);
-
-impl Dir {
-    fn new(name: &str) -> Dir {
-        let d = std::env::temp_dir().join(format!("lacuna-ext-{name}-{}", std::process::id()));
-        let _ = std::fs::remove_dir_all(&d);
-        std::fs::create_dir_all(&d).unwrap();
-        Dir(d)
-    }
-    fn path(&self, f: &str) -> PathBuf {
-        self.0.join(f)
-    }
-    fn write(&self, f: &str, bytes: &[u8]) -> PathBuf {
-        let p = self.path(f);
-        std::fs::write(&p, bytes).unwrap();
-        p
-    }
-}
-
-impl Drop for Dir {
-    fn drop(&mut self) {
-        let _ = std::fs::remove_dir_all(&self.0);
-    }
-}
-
-fn lacuna(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_lacuna"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
-}
-
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
-}
+use common::{Dir, lacuna, s};
+use std::path::Path;
 
 fn demo(f: &str) -> String {
     format!("{}/demo-data/recording/{f}", env!("CARGO_MANIFEST_DIR"))

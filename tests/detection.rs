@@ -6,7 +6,6 @@
 use lacuna::ingest::edf::{EdfFile, EdfVariant, EdfWriteSpec, write_edf};
 use lacuna::ingest::epochs::{Windowing, plan_epochs};
 use lacuna::ingest::pipeline::{ExtractOptions, SessionInput, extract};
-use lacuna::ingest::{InMemorySource, SignalSource};
 use lacuna::simulate::recording::{RecordingParams, SimulatedStudy, simulate_recording};
 
 fn temp_dir(tag: &str) -> std::path::PathBuf {
@@ -125,27 +124,11 @@ fn detection_with_mixed_faults_including_nan() {
     for k in ["lost", "railed", "disconnected", "noisy-session"] {
         assert!(kinds.contains(k), "scenario should contain {k}: {kinds:?}");
     }
-    let mut inputs = Vec::new();
-    for (s, session) in study.sessions.iter().enumerate() {
-        let source = InMemorySource {
-            name: format!("memory {s}"),
-            channels: study.channels.clone(),
-            rate: params.rate as f64,
-            data: std::sync::Arc::new(session.signals.clone()),
-            rails: Some(vec![
-                (-params.range_uv, params.range_uv);
-                study.channels.len()
-            ]),
-        };
-        let epochs = plan_epochs(&source, &windowing(&study, s, &params)).unwrap();
-        assert_eq!(source.n_samples(), session.signals[0].len());
-        inputs.push(SessionInput {
-            session: format!("s{s}"),
-            source: Box::new(source),
-            epochs,
-            isolated: false,
-        });
-    }
+    let inputs = study.session_inputs(&params).unwrap();
+    assert_eq!(
+        inputs[0].source.n_samples(),
+        study.sessions[0].signals[0].len()
+    );
     let opts = ExtractOptions {
         band: params.band,
         ..ExtractOptions::default()

@@ -2,21 +2,12 @@
 //! rendered by a real browser when one is installed (`.ci/run` installs
 //! Debian's chromium). Checks are common practice, no source.
 
+mod common;
+
+use common::lacuna;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::sync::OnceLock;
-
-fn lacuna(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_lacuna"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
-}
 
 fn demo(f: &str) -> String {
     format!("{}/demo-data/recording/{f}", env!("CARGO_MANIFEST_DIR"))

@@ -4,9 +4,7 @@
 
 use lacuna::Mat;
 use lacuna::diagnose::{ContributionOptions, contributions};
-use lacuna::ingest::InMemorySource;
-use lacuna::ingest::epochs::{Windowing, plan_epochs};
-use lacuna::ingest::pipeline::{ExtractOptions, SessionInput, extract};
+use lacuna::ingest::pipeline::{ExtractOptions, extract};
 use lacuna::schemes::AirmObserved;
 use lacuna::select::{
     SelectOptions, decoding, default_candidates, held_out_fit, recommend, simulated_dropout,
@@ -20,44 +18,11 @@ use lacuna::{AveragingScheme, SchemeOptions};
 fn demo_trials() -> lacuna::TrialSet {
     let params = RecordingParams::default();
     let study = simulate_recording(&params).unwrap();
-    let inputs = study
-        .sessions
-        .iter()
-        .enumerate()
-        .map(|(s, session)| {
-            let source = InMemorySource {
-                name: format!("session {s}"),
-                channels: study.channels.clone(),
-                rate: params.rate as f64,
-                data: std::sync::Arc::new(session.signals.clone()),
-                rails: Some(vec![
-                    (-params.range_uv, params.range_uv);
-                    study.channels.len()
-                ]),
-            };
-            let epochs = plan_epochs(
-                &source,
-                &Windowing::Events {
-                    events: session.events.clone(),
-                    offset: params.epoch_offset,
-                    length: params.epoch_length,
-                    keep: vec![],
-                },
-            )
-            .unwrap();
-            SessionInput {
-                session: format!("s{s}"),
-                source: Box::new(source),
-                epochs,
-                isolated: false,
-            }
-        })
-        .collect();
     let opts = ExtractOptions {
         band: params.band,
         ..ExtractOptions::default()
     };
-    extract(inputs, &opts, &|_, _| {})
+    extract(study.session_inputs(&params).unwrap(), &opts, &|_, _| {})
         .unwrap()
         .trial_set()
         .unwrap()

@@ -12,7 +12,8 @@ use super::progress::Progress;
 use lacuna::diagnose::{ContributionOptions, contributions, identifiability};
 use lacuna::schemes::MeanResult;
 use lacuna::select::{
-    SelectOptions, decoding, default_candidates, held_out_fit, recommend, simulated_dropout,
+    SelectOptions, decoding, default_candidates, held_out_fit, matching_blocks, recommend,
+    simulated_dropout,
 };
 use lacuna::spd::distance::airm_distance;
 use lacuna::spd::{Mat, condition_number, log_det};
@@ -118,23 +119,9 @@ fn dispersion_and_gap(set: &TrialSet, r: &MeanResult) -> (f64, f64) {
         .par_iter()
         .zip(w.par_iter())
         .map(|(t, &wi)| {
-            let o: Vec<usize> = match &est {
-                Some(e) => t
-                    .observed
-                    .iter()
-                    .copied()
-                    .filter(|c| e.contains(c))
-                    .collect(),
-                None => t.observed.clone(),
-            };
-            if o.is_empty() {
+            let Some((m, c)) = matching_blocks(&r.mean, est.as_deref(), t) else {
                 return (0.0, 0.0);
-            }
-            let pos: Vec<usize> = o
-                .iter()
-                .map(|c| t.observed.binary_search(c).expect("subset"))
-                .collect();
-            let (m, c) = (block(&r.mean, &o), block(&t.block, &pos));
+            };
             let d = airm_distance(&m, &c);
             let gap = log_det(&m).unwrap_or(f64::NAN) - log_det(&c).unwrap_or(f64::NAN);
             (wi * d * d, wi * gap)

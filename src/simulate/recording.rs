@@ -120,6 +120,47 @@ pub struct SimulatedStudy {
 }
 
 impl SimulatedStudy {
+    /// The sessions as in-memory recordings, epoched at the scenario's
+    /// epoch window around each cue (no file round trip), with the
+    /// amplifier range as the rails.
+    pub fn session_inputs(
+        &self,
+        params: &RecordingParams,
+    ) -> crate::Result<Vec<crate::ingest::pipeline::SessionInput>> {
+        use crate::ingest::epochs::{Windowing, plan_epochs};
+        self.sessions
+            .iter()
+            .enumerate()
+            .map(|(s, session)| {
+                let source = crate::ingest::InMemorySource {
+                    name: format!("simulated session {}", s + 1),
+                    channels: self.channels.clone(),
+                    rate: params.rate as f64,
+                    data: std::sync::Arc::new(session.signals.clone()),
+                    rails: Some(vec![
+                        (-params.range_uv, params.range_uv);
+                        self.channels.len()
+                    ]),
+                };
+                let epochs = plan_epochs(
+                    &source,
+                    &Windowing::Events {
+                        events: session.events.clone(),
+                        offset: params.epoch_offset,
+                        length: params.epoch_length,
+                        keep: vec![],
+                    },
+                )?;
+                Ok(crate::ingest::pipeline::SessionInput {
+                    session: format!("session-{}", s + 1),
+                    source: Box::new(source),
+                    epochs,
+                    isolated: false,
+                })
+            })
+            .collect()
+    }
+
     /// True mask (trials × channels, true = observed).
     pub fn true_mask(&self) -> Vec<bool> {
         self.faults

@@ -37,3 +37,47 @@ pub fn loewner_geq(a: &Mat, b: &Mat, tol: f64) -> bool {
     let d = lacuna::spd::kernels::sym_eigenvalues(&lacuna::spd::symmetrize(&(a - b)));
     d[0] >= -tol * a.norm()
 }
+
+/// A temporary folder removed when dropped; unique per test binary and name.
+pub struct Dir(pub std::path::PathBuf);
+
+impl Dir {
+    pub fn new(name: &str) -> Dir {
+        let d = std::env::temp_dir().join(format!("lacuna-test-{name}-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&d);
+        std::fs::create_dir_all(&d).unwrap();
+        Dir(d)
+    }
+    pub fn path(&self, f: &str) -> std::path::PathBuf {
+        self.0.join(f)
+    }
+    pub fn write(&self, f: &str, bytes: &[u8]) -> std::path::PathBuf {
+        let p = self.path(f);
+        std::fs::write(&p, bytes).unwrap();
+        p
+    }
+}
+
+impl Drop for Dir {
+    fn drop(&mut self) {
+        let _ = std::fs::remove_dir_all(&self.0);
+    }
+}
+
+/// Runs the lacuna binary: (exit code, stdout, stderr).
+pub fn lacuna(args: &[&str]) -> (i32, String, String) {
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_lacuna"))
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stdout).into(),
+        String::from_utf8_lossy(&out.stderr).into(),
+    )
+}
+
+/// A path as &str.
+pub fn s(p: &std::path::Path) -> &str {
+    p.to_str().unwrap()
+}
