@@ -393,6 +393,19 @@ fn score_of(label: &str, runs: impl Iterator<Item = RunOutcome>) -> Score {
     }
 }
 
+/// Keeps a seeded random subset of at most `cap` of `v`, in increasing order.
+fn seeded_subset(v: &mut Vec<usize>, cap: usize, seed: u64) {
+    if v.len() <= cap {
+        return;
+    }
+    let mut rng = Rng::new(seed);
+    for i in (1..v.len()).rev() {
+        v.swap(i, rng.below(i + 1));
+    }
+    v.truncate(cap);
+    v.sort_unstable();
+}
+
 /// Trial indices of each fold (shuffled with the seed).
 fn folds(n: usize, k: usize, seed: u64) -> Vec<Vec<usize>> {
     let mut rng = Rng::new(seed);
@@ -433,14 +446,7 @@ pub fn held_out_fit(
             let mut train: Vec<usize> = (0..set.len())
                 .filter(|i| test.binary_search(i).is_err())
                 .collect();
-            if train.len() > opts.max_train {
-                let mut rng = Rng::new(opts.seed ^ 0x7EA1 ^ f as u64);
-                for i in (1..train.len()).rev() {
-                    train.swap(i, rng.below(i + 1));
-                }
-                train.truncate(opts.max_train);
-                train.sort_unstable();
-            }
+            seeded_subset(&mut train, opts.max_train, opts.seed ^ 0x7EA1 ^ f as u64);
             let Ok(tr) = set.select_trials(&train) else {
                 return vec![Err("empty training set".into()); candidates.len()];
             };
@@ -541,15 +547,11 @@ pub fn decoding(
                             .filter(|i| test.binary_search(i).is_err() && &labels[*i] == class)
                             .collect();
                         let cap = (opts.max_train / classes.len()).max(2);
-                        if train.len() > cap {
-                            let mut rng =
-                                Rng::new(opts.seed ^ 0xC1A5 ^ ((k as u64) << 8) ^ test[0] as u64);
-                            for i in (1..train.len()).rev() {
-                                train.swap(i, rng.below(i + 1));
-                            }
-                            train.truncate(cap);
-                            train.sort_unstable();
-                        }
+                        seeded_subset(
+                            &mut train,
+                            cap,
+                            opts.seed ^ 0xC1A5 ^ ((k as u64) << 8) ^ test[0] as u64,
+                        );
                         let tr = set.select_trials(&train).map_err(|e| e.to_string())?;
                         let m = c.run_loose(&tr).map_err(|e| e.to_string())?;
                         means.push(m);
