@@ -305,11 +305,13 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         "scheme,status,converged,iterations,seconds,condition_number,log_det,log_det_gap,dispersion,estimated_channels,notes\n",
     );
     let mut rows = Vec::new();
+    let mut dispersions = vec![f64::NAN; candidates.len()];
     for (k, c) in candidates.iter().enumerate() {
         let (r, secs) = &results[k];
         match r {
             Ok(m) => {
                 let (disp, gap) = dispersion_and_gap(&set, m);
+                dispersions[k] = disp;
                 let est = m
                     .diagnostics
                     .estimated_channels
@@ -514,7 +516,7 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                     c.label,
                     m.diagnostics.converged,
                     m.diagnostics.iterations,
-                    dispersion_and_gap(&set, m).0,
+                    dispersions[k],
                     results[k].1
                 ),
                 Err(e) => println!("{:<26} not applicable: {e}", c.label),

@@ -208,7 +208,13 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
                 (Box::new(read_signal_csv(path, rate)?), Vec::new())
             } else {
                 let mut f = EdfFile::open(path)?;
-                let ann = f.annotations()?;
+                // Annotations are the events only when no events file or
+                // fixed windows were asked for.
+                let ann = if a.events.is_empty() && a.window.is_none() {
+                    f.annotations()?
+                } else {
+                    Vec::new()
+                };
                 if !f.set_aside.is_empty() && !a.quiet {
                     eprintln!(
                         "note: {}: set aside (other sampling rate): {}",

@@ -421,10 +421,20 @@ impl EdfFile {
         };
         let base = self.header.signal_offset(k);
         let len = self.header.signals[k].samples_per_record * self.header.variant.sample_bytes();
+        // Only the annotation signal's bytes of each record are read.
+        let mut bytes = vec![0u8; len];
         let mut events = Vec::new();
         for r in 0..self.header.n_records {
-            self.read_record(r)?;
-            let bytes = self.record_buf[base..base + len].to_vec();
+            let offset = self.header.header_bytes as u64
+                + r as u64 * self.record_buf.len() as u64
+                + base as u64;
+            self.file
+                .seek(SeekFrom::Start(offset))
+                .and_then(|_| self.file.read_exact(&mut bytes))
+                .map_err(|source| LacunaError::Read {
+                    path: self.path.clone(),
+                    source,
+                })?;
             parse_tals(&bytes, &mut events).map_err(|message| LacunaError::Format {
                 path: self.path.clone(),
                 message: format!("data record {r}: annotation signal: {message}"),
