@@ -172,6 +172,7 @@ fn browser_renders_the_report() {
             "--headless",
             "--no-sandbox",
             "--disable-gpu",
+            "--disable-dev-shm-usage",
             "--hide-scrollbars",
             "--enable-logging=stderr",
             "--v=0",
