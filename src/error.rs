@@ -40,6 +40,12 @@ fn list_problems(problems: &[TrialProblem]) -> String {
     if problems.len() > SHOWN {
         out.push_str(&format!("\n  … and {} more", problems.len() - SHOWN));
     }
+    if problems
+        .iter()
+        .any(|p| p.message.contains("not positive definite"))
+    {
+        out.push_str("\nhint: windows shorter than the channel count, average referencing and interpolation make covariances singular; estimate them with shrinkage from the recordings (`lacuna extract --estimator oas`), or mark the dependent channel as unobserved in the mask");
+    }
     out
 }
 
