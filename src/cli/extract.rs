@@ -11,7 +11,7 @@ use lacuna::ingest::epochs::{EpochSpec, Windowing, plan_epochs, read_npy_epochs}
 use lacuna::ingest::pipeline::{ExtractOptions, Extraction, SessionInput, extract};
 use lacuna::ingest::text::{read_events_csv, read_signal_csv};
 use lacuna::ingest::{Event, SignalSource};
-use lacuna::trials::io::{encode_mask, encode_stack_with_nan, read_mask};
+use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan, read_mask};
 use lacuna::trials::npy::write_atomic;
 use lacuna::{LacunaError, Result};
 use serde_json::json;
@@ -374,13 +374,7 @@ fn write_outputs(
     elapsed: f64,
 ) -> Result<()> {
     // Everything is encoded before the first file is written.
-    let mut mask_csv = set.channels().join(",");
-    mask_csv.push('\n');
-    for row in set.mask().chunks(set.n_channels()) {
-        let r: Vec<&str> = row.iter().map(|&b| if b { "1" } else { "0" }).collect();
-        mask_csv.push_str(&r.join(","));
-        mask_csv.push('\n');
-    }
+    let mask_csv = encode_mask_csv(set);
     let mut labels = String::from("label,session\n");
     let kept: Vec<usize> = (0..out.epochs.len())
         .filter(|e| !out.empty_epochs.contains(e))
@@ -470,7 +464,7 @@ fn write_outputs(
     })?;
     write_atomic(&a.out.join("covs.npy"), &encode_stack_with_nan(set))?;
     write_atomic(&a.out.join("mask.npy"), &encode_mask(set))?;
-    write_atomic(&a.out.join("mask.csv"), mask_csv.as_bytes())?;
+    write_atomic(&a.out.join("mask.csv"), &mask_csv)?;
     write_atomic(&a.out.join("labels.csv"), labels.as_bytes())?;
     write_atomic(
         &a.out.join("epochs.json"),

@@ -10,7 +10,7 @@ use lacuna::simulate::recording::{RecordingParams, simulate_recording};
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
 use lacuna::trials::TrialSet;
-use lacuna::trials::io::{encode_mask, encode_stack_with_nan, write_matrix};
+use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan, write_matrix};
 use lacuna::trials::npy::encode_f64;
 use lacuna::trials::npy::write_atomic;
 use lacuna::{LacunaError, Result};
@@ -79,26 +79,10 @@ pub struct SynthArgs {
     seed: u64,
 }
 
-fn mask_csv(set: &TrialSet) -> Vec<u8> {
-    let mut s = set.channels().join(",");
-    s.push('\n');
-    let p = set.n_channels();
-    for row in set.mask().chunks(p) {
-        s.push_str(
-            &row.iter()
-                .map(|&b| if b { "1" } else { "0" })
-                .collect::<Vec<_>>()
-                .join(","),
-        );
-        s.push('\n');
-    }
-    s.into_bytes()
-}
-
 fn write_set(dir: &Path, set: &TrialSet) -> Result<()> {
     write_atomic(&dir.join("covs.npy"), &encode_stack_with_nan(set))?;
     write_atomic(&dir.join("mask.npy"), &encode_mask(set))?;
-    write_atomic(&dir.join("mask.csv"), &mask_csv(set))
+    write_atomic(&dir.join("mask.csv"), &encode_mask_csv(set))
 }
 
 pub fn run(a: SynthArgs) -> Result<i32> {

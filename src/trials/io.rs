@@ -462,6 +462,19 @@ pub fn encode_mask(set: &TrialSet) -> Vec<u8> {
     npy::encode_u8(&[set.len(), set.n_channels()], &m)
 }
 
+/// Encodes a trial set's mask as CSV: a header of channel names, then one
+/// row of 0/1 per trial (1 = observed).
+pub fn encode_mask_csv(set: &TrialSet) -> Vec<u8> {
+    let mut s = set.channels().join(",");
+    s.push('\n');
+    for row in set.mask().chunks(set.n_channels()) {
+        let cells: Vec<&str> = row.iter().map(|&b| if b { "1" } else { "0" }).collect();
+        s.push_str(&cells.join(","));
+        s.push('\n');
+    }
+    s.into_bytes()
+}
+
 /// Reads electrode positions (CSV with a header `channel,x,y,z`) and returns
 /// them in the order of `channels`, scaled to the unit sphere. Every channel
 /// must be listed; extra rows are ignored.
