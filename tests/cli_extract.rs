@@ -2,7 +2,7 @@
 
 mod common;
 
-use common::{Dir, lacuna, s};
+use common::{Dir, extract_demo, lacuna, s};
 use std::path::Path;
 
 fn demo(f: &str) -> String {
@@ -25,27 +25,7 @@ fn read_csv_rows(path: &Path) -> Vec<Vec<String>> {
 fn readme_whole_path_on_demo_recordings() {
     let d = Dir::new("readme");
     let trials = d.path("trials");
-    let (s1, s2, s3) = (
-        demo("session-1.edf"),
-        demo("session-2.edf"),
-        demo("session-3.edf"),
-    );
-    let (code, out, err) = lacuna(&[
-        "extract",
-        &s1,
-        &s2,
-        &s3,
-        "--offset",
-        "0.5",
-        "--length",
-        "2",
-        "--band",
-        "8-30",
-        "--out",
-        s(&trials),
-        "--mask-report",
-        s(&d.path("masked.csv")),
-    ]);
+    let (code, out, err) = extract_demo(&trials, &["--mask-report", s(&d.path("masked.csv"))]);
     assert_eq!(code, 0, "{err}");
     assert!(out.contains("90 epochs × 24 channels"), "{out}");
     let mask = read_csv_rows(&trials.join("mask.csv"));
@@ -449,26 +429,7 @@ fn csv_recording_with_events_and_set_aside_channels() {
 fn compare_on_demo_trials() {
     let d = Dir::new("compare");
     let trials = d.path("trials");
-    let (s1, s2, s3) = (
-        demo("session-1.edf"),
-        demo("session-2.edf"),
-        demo("session-3.edf"),
-    );
-    let (code, _, err) = lacuna(&[
-        "extract",
-        &s1,
-        &s2,
-        &s3,
-        "--offset",
-        "0.5",
-        "--length",
-        "2",
-        "--band",
-        "8-30",
-        "--out",
-        s(&trials),
-        "--quiet",
-    ]);
+    let (code, _, err) = extract_demo(&trials, &["--quiet"]);
     assert_eq!(code, 0, "{err}");
     let out = d.path("cmp");
     let (code, stdout, err) = lacuna(&[

@@ -23,21 +23,7 @@ fn demo_report() -> &'static (PathBuf, String) {
         std::fs::create_dir_all(&dir).unwrap();
         let trials = dir.join("trials");
         let s = |p: &Path| p.to_str().unwrap().to_string();
-        let (code, _, err) = lacuna(&[
-            "extract",
-            &demo("session-1.edf"),
-            &demo("session-2.edf"),
-            &demo("session-3.edf"),
-            "--offset",
-            "0.5",
-            "--length",
-            "2",
-            "--band",
-            "8-30",
-            "--out",
-            &s(&trials),
-            "--quiet",
-        ]);
+        let (code, _, err) = common::extract_demo(&trials, &["--quiet"]);
         assert_eq!(code, 0, "{err}");
         let cmp = dir.join("cmp");
         let (code, _, err) = lacuna(&[

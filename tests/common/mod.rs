@@ -81,3 +81,30 @@ pub fn lacuna(args: &[&str]) -> (i32, String, String) {
 pub fn s(p: &std::path::Path) -> &str {
     p.to_str().unwrap()
 }
+
+/// A file of the committed demo recordings.
+pub fn demo_recording(f: &str) -> String {
+    format!("{}/demo-data/recording/{f}", env!("CARGO_MANIFEST_DIR"))
+}
+
+/// The README's extract command on the three demo sessions, writing to
+/// `out`, with `extra` arguments appended.
+pub fn extract_demo(out: &std::path::Path, extra: &[&str]) -> (i32, String, String) {
+    let sessions: Vec<String> = (1..=3)
+        .map(|k| demo_recording(&format!("session-{k}.edf")))
+        .collect();
+    let mut args: Vec<&str> = vec!["extract"];
+    args.extend(sessions.iter().map(String::as_str));
+    args.extend([
+        "--offset",
+        "0.5",
+        "--length",
+        "2",
+        "--band",
+        "8-30",
+        "--out",
+        s(out),
+    ]);
+    args.extend_from_slice(extra);
+    lacuna(&args)
+}
