@@ -285,3 +285,169 @@ fn masked_cost_is_not_geodesically_convex() {
         "second derivative {second}"
     );
 }
+
+fn fixture_set(case: &serde_json::Value) -> TrialSet {
+    let p = case["p"].as_u64().unwrap() as usize;
+    let observed: Vec<Vec<usize>> = serde_json::from_value(case["observed"].clone()).unwrap();
+    let trials: Vec<Trial> = observed
+        .into_iter()
+        .zip(case["blocks"].as_array().unwrap())
+        .map(|(o, b)| Trial {
+            observed: o,
+            block: mat(b),
+        })
+        .collect();
+    TrialSet::new(default_channel_names(p), trials, None, "fixture").unwrap()
+}
+
+// Pairs never observed together, no complete trial, strongly correlated channels
+// (p = 4, 8, 16). Reference: scipy L-BFGS-B over a Cholesky parametrisation, free
+// entries then set by scipy maximising log det (make_fixtures.py masked_free_cases,
+// numpy 2.1.3, scipy 1.14.1). Every start must converge, reach the reference cost to
+// 1e-8 relative, agree on the determined entries to 1e-8, and leave (X⁻¹)[a,b] = 0 on
+// the free pairs (Dempster 1972, Biometrics 28).
+#[test]
+fn never_coobserved_pairs_converge_from_every_start() {
+    let f = fixture("masked_free");
+    for case in f["cases"].as_array().unwrap() {
+        let s = fixture_set(case);
+        let p = s.n_channels();
+        let free = identifiability(&s).unconstrained_pairs;
+        assert!(!free.is_empty(), "p={p}: the fixture must have free pairs");
+        let options = SchemeOptions {
+            starts: 5,
+            ..SchemeOptions::default()
+        };
+        let r = AirmObserved.average(&s, &options).unwrap();
+        let d = &r.diagnostics;
+        for st in &d.starts {
+            assert!(st.converged, "p={p}: start {} did not converge", st.init);
+            assert!(
+                st.iterations <= 60,
+                "p={p}: start {} took {} iterations",
+                st.init,
+                st.iterations
+            );
+            assert!(
+                st.determined_difference <= 1e-8,
+                "p={p}: start {} differs by {:.2e} on determined entries",
+                st.init,
+                st.determined_difference
+            );
+        }
+        assert_eq!(d.starts_agree, Some(true));
+        let cref = case["cost"].as_f64().unwrap();
+        let cost = d.cost.unwrap();
+        assert!(
+            ((cost - cref) / cref).abs() <= 1e-8,
+            "p={p}: cost {cost} vs scipy {cref}"
+        );
+        let inv = inv_spd(&r.mean);
+        for &[a, b] in &free {
+            let scaled = inv[(a, b)] * (r.mean[(a, a)] * r.mean[(b, b)]).sqrt();
+            assert!(scaled.abs() < 1e-9, "p={p}: (X⁻¹)[{a},{b}] = {scaled:e}");
+        }
+        let reference = mat(&case["mean"]);
+        let rel = (&r.mean - &reference).norm() / reference.norm();
+        assert!(
+            rel < 1e-5,
+            "p={p}: relative difference to scipy mean {rel:e}"
+        );
+    }
+}
+
+// Grone, Johnson, Sá & Wolkowicz 1984 (Linear Algebra Appl. 58): a 3-cycle of
+// specified correlations +0.8, +0.8, −0.8 has no positive definite completion, so the
+// masked cost has no minimiser among SPD matrices. The run must end at the boundary,
+// not as converged, naming all three channels in the vanishing direction.
+#[test]
+fn inconsistent_three_cycle_runs_to_the_boundary() {
+    let pair = |r: f64| Mat::from_row_slice(2, 2, &[1.0, r, r, 1.0]);
+    let trials = vec![
+        Trial {
+            observed: vec![0, 1],
+            block: pair(0.8),
+        },
+        Trial {
+            observed: vec![1, 2],
+            block: pair(0.8),
+        },
+        Trial {
+            observed: vec![0, 2],
+            block: pair(-0.8),
+        },
+    ];
+    let s = TrialSet::new(default_channel_names(3), trials, None, "cycle").unwrap();
+    let r = AirmObserved.average(&s, &SchemeOptions::default()).unwrap();
+    let d = &r.diagnostics;
+    assert!(!d.converged);
+    assert_eq!(d.stop_reason, Some(lacuna::solve::StopReason::Boundary));
+    let v = d.boundary.as_ref().expect("vanishing direction reported");
+    let mut chans: Vec<usize> = v.channels.iter().map(|c| c.0).collect();
+    chans.sort();
+    assert_eq!(chans, vec![0, 1, 2]);
+    // The written mean is still positive definite (last safe iterate).
+    assert!(lacuna::spd::kernels::cholesky(&r.mean).is_some());
+    // Consistent correlations (+0.8, +0.8, +0.64 = 0.8·0.8) have a minimiser.
+    let ok = vec![
+        Trial {
+            observed: vec![0, 1],
+            block: pair(0.8),
+        },
+        Trial {
+            observed: vec![1, 2],
+            block: pair(0.8),
+        },
+        Trial {
+            observed: vec![0, 2],
+            block: pair(0.64),
+        },
+    ];
+    let s = TrialSet::new(default_channel_names(3), ok, None, "cycle").unwrap();
+    let r = AirmObserved.average(&s, &SchemeOptions::default()).unwrap();
+    assert!(r.diagnostics.converged && r.diagnostics.boundary.is_none());
+}
+
+// The real-size version of the same failure (common practice, no source): nine
+// channels in three groups, three sessions each observing two groups; a large gain
+// change flips the sign of one group's coupling in one session, so the pairwise
+// couplings of the groups form the inconsistent cycle above. Twenty trials per session.
+#[test]
+fn inconsistent_sessions_run_to_the_boundary() {
+    let mut rng = Rng::new(7);
+    let groups: [Vec<usize>; 3] = [vec![0, 1, 2], vec![3, 4, 5], vec![6, 7, 8]];
+    let mut trials = Vec::new();
+    for (sess, (ga, gb, sign)) in [(0, 1, 1.0), (1, 2, 1.0), (0, 2, -1.0)]
+        .into_iter()
+        .enumerate()
+    {
+        let observed: Vec<usize> = groups[ga].iter().chain(&groups[gb]).copied().collect();
+        let mut observed = observed;
+        observed.sort();
+        // One shared factor loads +1 on group a and ±1 on group b, plus small noise.
+        let load: Vec<f64> = observed
+            .iter()
+            .map(|c| if groups[gb].contains(c) { sign } else { 1.0 })
+            .collect();
+        let k = observed.len();
+        let sigma = Mat::from_fn(k, k, |a, b| {
+            0.95 * load[a] * load[b] + if a == b { 0.05 } else { 0.0 }
+        });
+        for _ in 0..20 {
+            let c = sample_covariance(&sigma, 200, &mut rng);
+            trials.push(Trial {
+                observed: observed.clone(),
+                block: c,
+            });
+        }
+        let _ = sess;
+    }
+    let s = TrialSet::new(default_channel_names(9), trials, None, "sessions").unwrap();
+    let r = AirmObserved.average(&s, &SchemeOptions::default()).unwrap();
+    assert_eq!(
+        r.diagnostics.stop_reason,
+        Some(lacuna::solve::StopReason::Boundary),
+        "{:?}",
+        r.diagnostics.trace.last()
+    );
+}

@@ -198,6 +198,25 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         seed: a.seed,
         ..SchemeOptions::default()
     };
+    // Every name must be a scheme (or one point of the loading grid): a typo
+    // must not silently shrink the comparison to the names that matched.
+    let valid: Vec<&'static str> = lacuna::all_schemes()
+        .into_iter()
+        .filter(|s| s.handles_missing())
+        .map(|s| s.name())
+        .collect();
+    for name in &a.schemes {
+        let grid_point = name.starts_with("diagonal-loading(") && name.ends_with(')');
+        if !valid.contains(&name.as_str()) && !grid_point {
+            let hint = lacuna::schemes::closest_scheme_name(name)
+                .map(|n| format!(" (did you mean '{n}'?)"))
+                .unwrap_or_default();
+            return Err(LacunaError::InvalidOption(format!(
+                "--schemes: '{name}' is not a scheme that accepts missing channels{hint}. Valid names: {}",
+                valid.join(", ")
+            )));
+        }
+    }
     let candidates = default_candidates(&base, &a.schemes);
     if candidates.is_empty() {
         return Err(LacunaError::InvalidOption(format!(
@@ -318,11 +337,20 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                     .as_ref()
                     .map_or(p, Vec::len);
                 let safe = c.label.replace(['(', ')'], "_");
+                // Files carry NaN where the scheme estimated nothing; the
+                // condition number and log det describe the estimated block.
+                let published = m.published();
+                let est_idx: Vec<usize> = m
+                    .diagnostics
+                    .estimated_channels
+                    .clone()
+                    .unwrap_or_else(|| (0..p).collect());
+                let est_block = block(&m.mean, &est_idx);
                 files.push((
                     means_dir.join(format!("{safe}.npy")),
                     encode_matrix(
                         &means_dir.join(format!("{safe}.npy")),
-                        &m.mean,
+                        &published,
                         set.channels(),
                     ),
                 ));
@@ -330,7 +358,7 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                     means_dir.join(format!("{safe}.csv")),
                     encode_matrix(
                         &means_dir.join(format!("{safe}.csv")),
-                        &m.mean,
+                        &published,
                         set.channels(),
                     ),
                 ));
@@ -340,8 +368,8 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                     m.diagnostics.converged,
                     m.diagnostics.iterations,
                     secs,
-                    condition_number(&m.mean),
-                    log_det(&m.mean).unwrap_or(f64::NAN),
+                    condition_number(&est_block),
+                    log_det(&est_block).unwrap_or(f64::NAN),
                     gap,
                     disp,
                     est,
@@ -353,14 +381,14 @@ pub fn run(a: CompareArgs) -> Result<i32> {
                     "converged": m.diagnostics.converged,
                     "iterations": m.diagnostics.iterations,
                     "seconds": secs,
-                    "condition_number": condition_number(&m.mean),
-                    "log_det": log_det(&m.mean),
+                    "condition_number": condition_number(&est_block),
+                    "log_det": log_det(&est_block),
                     "log_det_gap": gap,
                     "dispersion": disp,
                     "estimated_channels": est,
                     "notes": m.diagnostics.notes,
                     "mean_file": format!("means/{safe}.npy"),
-                    "mean": (0..p).map(|i| (0..p).map(|j| m.mean[(i, j)]).collect::<Vec<f64>>()).collect::<Vec<_>>(),
+                    "mean": (0..p).map(|i| (0..p).map(|j| published[(i, j)]).collect::<Vec<f64>>()).collect::<Vec<_>>(),
                     "trace": m.diagnostics.trace,
                 }));
             }
@@ -480,7 +508,22 @@ pub fn run(a: CompareArgs) -> Result<i32> {
     ));
     if let Some(path) = &a.html {
         let epochs = match &a.epochs {
-            Some(e) => Some(super::report::read_json(e)?),
+            Some(e) => {
+                let doc = super::report::read_json(e)?;
+                let observed: Vec<Vec<usize>> =
+                    set.trials().iter().map(|t| t.observed.clone()).collect();
+                lacuna::report::epochs_check::check_epochs_match(
+                    &doc,
+                    set.channels(),
+                    set.len(),
+                    Some(&observed),
+                )
+                .map_err(|why| LacunaError::Format {
+                    path: e.clone(),
+                    message: format!("does not describe this trial set: {why}; pass the epochs.json written with these covariances"),
+                })?;
+                Some(doc)
+            }
             None => None,
         };
         files.push((

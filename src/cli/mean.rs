@@ -86,8 +86,11 @@ pub struct MeanArgs {
 pub fn run(a: MeanArgs) -> Result<i32> {
     let scheme = scheme_by_name(&a.scheme).ok_or_else(|| {
         let names: Vec<&str> = lacuna::all_schemes().iter().map(|s| s.name()).collect();
+        let hint = lacuna::schemes::closest_scheme_name(&a.scheme)
+            .map(|n| format!(" (did you mean '{n}'?)"))
+            .unwrap_or_default();
         LacunaError::InvalidOption(format!(
-            "unknown scheme '{}'; choose one of: {}",
+            "unknown scheme '{}'{hint}; choose one of: {}",
             a.scheme,
             names.join(", ")
         ))
@@ -159,7 +162,7 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         eprintln!();
     }
     let elapsed = started.elapsed().as_secs_f64();
-    write_matrix(&a.out, &result.mean, set.channels())?;
+    write_matrix(&a.out, &result.published(), set.channels())?;
     let summary = summarize(&set, &result.mean);
     let report = MeanReport::new(
         &result,
@@ -196,10 +199,11 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         if d.iterative {
             eprintln!(
                 "  {} after {} iterations: gradient norm {:.2e} (tolerance {:.0e}), cost {:.6e}",
-                if d.converged {
-                    "converged"
-                } else {
-                    "NOT converged"
+                match d.stop_reason {
+                    _ if d.converged => "converged",
+                    Some(lacuna::solve::StopReason::Boundary) =>
+                        "ran to the boundary of the SPD cone (NO positive definite mean exists)",
+                    _ => "NOT converged",
                 },
                 d.iterations,
                 d.gradient_norm.unwrap_or(f64::NAN),

@@ -46,7 +46,25 @@ pub fn run(a: ReportArgs) -> Result<i32> {
         });
     }
     let epochs = match &a.epochs {
-        Some(e) => Some(read_json(e)?),
+        Some(e) => {
+            let doc = read_json(e)?;
+            let channels: Vec<String> = compare["channels"]
+                .as_array()
+                .map(|a| {
+                    a.iter()
+                        .filter_map(|v| v.as_str().map(str::to_string))
+                        .collect()
+                })
+                .unwrap_or_default();
+            let n = compare["trials"].as_u64().unwrap_or(0) as usize;
+            lacuna::report::epochs_check::check_epochs_match(&doc, &channels, n, None).map_err(
+                |why| LacunaError::Format {
+                    path: e.clone(),
+                    message: format!("does not describe the trial set of {}: {why}; pass the epochs.json written with those covariances", path.display()),
+                },
+            )?;
+            Some(doc)
+        }
         None => None,
     };
     let html = lacuna::report::html::render(&compare, epochs.as_ref());

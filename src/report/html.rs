@@ -110,6 +110,22 @@ fn heatmap(
     s.vtext(10.0, y0 + size / 2.0, "row channel", "axis-label");
     for (i, row) in m.iter().enumerate() {
         for (j, &v) in row.iter().enumerate() {
+            let (ci, cj) = (
+                names.get(i).map_or("?", String::as_str),
+                names.get(j).map_or("?", String::as_str),
+            );
+            if v.is_nan() {
+                // Not estimated by this scheme: a light grey cell, said in words.
+                s.rect_titled(
+                    x0 + j as f64 * cell,
+                    y0 + i as f64 * cell,
+                    cell,
+                    cell,
+                    "#e4e4e4",
+                    &format!("{ci} × {cj}: not estimated"),
+                );
+                continue;
+            }
             let color = if diverge {
                 diverging(v, scale)
             } else {
@@ -121,7 +137,7 @@ fn heatmap(
                 cell,
                 cell,
                 &color,
-                &format!("{} × {}: {} {unit}", names[i], names[j], fmt_tick(v)),
+                &format!("{ci} × {cj}: {} {unit}", fmt_tick(v)),
             );
         }
     }
@@ -583,7 +599,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
             .filter(|v| v.is_finite())
             .fold(0.0f64, |a, v| a.max(v.abs()));
         let cell = (300.0 / p as f64).clamp(3.0, 12.0);
-        sec.push_str("<p class=\"note\">All maps share one diverging colour scale, symmetric about zero, in the data's squared units.</p><div class=\"grid\">");
+        sec.push_str("<p class=\"note\">All maps share one diverging colour scale, symmetric about zero, in the data's squared units. Light grey cells are entries a scheme did not estimate.</p><div class=\"grid\">");
         for (name, m) in &means {
             sec.push_str(&heatmap(
                 m,

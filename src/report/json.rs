@@ -42,6 +42,7 @@ pub struct MeanReport<'a> {
     pub pattern_log_det: &'a [crate::diagnose::summary::PatternSwelling],
     pub starts: &'a [StartOutcome],
     pub starts_agree: Option<bool>,
+    pub boundary: Option<&'a crate::schemes::VanishingDirection>,
     pub notes: &'a [String],
     pub advice: Vec<String>,
     pub trace: &'a [IterRecord],
@@ -69,6 +70,7 @@ impl<'a> MeanReport<'a> {
             advice.push(match d.stop_reason {
                 Some(StopReason::MaxIterations) => "the iteration cap was reached: raise --max-iter, or check the trace for slow progress".to_string(),
                 Some(StopReason::LineSearchStalled) => "no further decrease was possible at double precision: the gradient norm above is the attainable floor on these data; loosen --tol to accept it".to_string(),
+                Some(StopReason::Boundary) => "the observed blocks admit no positive definite mean (see notes and `boundary`): use a regularising scheme (shrinkage, diagonal-loading, gaussian-em), leave out one of the channels named there, or add trials that observe them together".to_string(),
                 _ => "see the trace".to_string(),
             });
         }
@@ -105,6 +107,7 @@ impl<'a> MeanReport<'a> {
             pattern_log_det: &summary.patterns,
             starts: &d.starts,
             starts_agree: d.starts_agree,
+            boundary: d.boundary.as_ref(),
             notes: &d.notes,
             advice,
             trace: &d.trace,

@@ -17,11 +17,13 @@
 //! not pinned by the cost; after solving they are filled by the
 //! maximum-determinant completion ([`crate::diagnose::completion`]).
 
-use super::{AveragingScheme, Diagnostics, MeanResult, SchemeOptions, StartOutcome};
+use super::{
+    AveragingScheme, Diagnostics, MeanResult, SchemeOptions, StartOutcome, VanishingDirection,
+};
 use crate::diagnose::{identifiability, max_det_completion};
 use crate::error::{LacunaError, Result};
 use crate::simulate::rng::Rng;
-use crate::solve::{Evaluation, IterRecord, Solution, SpdProblem, chunked, lbfgs};
+use crate::solve::{Evaluation, IterRecord, Solution, SpdProblem, StopReason, chunked, lbfgs};
 use crate::spd::kernels::{
     add_congruence_t, add_rebuild, cholesky, solve_lower_in_place, sym_eigen, whiten,
 };
@@ -128,6 +130,8 @@ pub struct MaskedKarcherProblem<'a> {
     weights: Vec<f64>,
     /// Work items: (group index, range into that group's trial list).
     items: Vec<(usize, std::ops::Range<usize>)>,
+    /// Pairs no trial observes together: flat directions of the cost.
+    free_pairs: Vec<[usize; 2]>,
 }
 
 /// Trials per work item. Small, because items of one large group (the
@@ -152,6 +156,7 @@ impl<'a> MaskedKarcherProblem<'a> {
             groups,
             weights: set.normalized_weights(),
             items,
+            free_pairs: identifiability(set).unconstrained_pairs,
         }
     }
 
@@ -174,6 +179,17 @@ impl<'a> MaskedKarcherProblem<'a> {
 impl SpdProblem for MaskedKarcherProblem<'_> {
     fn size(&self) -> usize {
         self.set.n_channels()
+    }
+
+    /// Free entries go to the maximum-determinant completion: the cost and
+    /// its Euclidean gradient involve only co-observed entries, so both are
+    /// unchanged, and the iterate stays as far inside the cone as its pinned
+    /// entries allow (docs/masked-mean.md, "Flat directions").
+    fn canonical(&self, x: &Mat) -> Option<Mat> {
+        if self.free_pairs.is_empty() {
+            return None;
+        }
+        Some(max_det_completion(x, &self.free_pairs).matrix)
     }
 
     fn evaluate(&self, w: &Mat) -> Option<Evaluation> {
@@ -292,6 +308,27 @@ fn perturbed(x: &Mat, rng: &mut Rng, sigma: f64) -> Mat {
     symmetrize(&(&w * expm_sym(&z) * &w))
 }
 
+/// Pairs `[a, b]` (`a ≤ b`) that some trial observes together.
+fn pinned_pairs(p: usize, free: &[[usize; 2]]) -> Vec<[usize; 2]> {
+    let mut out = Vec::new();
+    for a in 0..p {
+        for b in a..p {
+            if free.binary_search(&[a, b]).is_err() {
+                out.push([a, b]);
+            }
+        }
+    }
+    out
+}
+
+/// Largest `|X_ab − Y_ab| / sqrt(X_aa X_bb)` over the given pairs.
+fn pinned_difference(x: &Mat, y: &Mat, pairs: &[[usize; 2]]) -> f64 {
+    pairs
+        .iter()
+        .map(|&[a, b]| (x[(a, b)] - y[(a, b)]).abs() / (x[(a, a)] * x[(b, b)]).sqrt())
+        .fold(0.0, f64::max)
+}
+
 impl AirmObserved {
     fn starting_points(&self, set: &TrialSet, options: &SchemeOptions) -> Vec<(String, Mat)> {
         let mut starts = match &options.warm_start {
@@ -362,17 +399,19 @@ impl AveragingScheme for AirmObserved {
             })?;
             runs.push((label, sol));
         }
-        // Report the run with the lowest cost; a later start must beat the
-        // current best by more than rounding (1e-10 relative) to replace it,
-        // so the chosen --init wins ties.
-        let best = (0..runs.len()).fold(0, |b, k| {
-            let cb = runs[b].1.cost;
-            if runs[k].1.cost < cb - 1e-10 * cb.abs() {
-                k
-            } else {
-                b
-            }
-        });
+        // Report the converged run with the lowest cost (any run if none
+        // converged); a later start must beat the current best by more than
+        // rounding (1e-10 relative) to replace it, so the chosen --init wins ties.
+        let any_converged = runs.iter().any(|(_, s)| s.converged());
+        let best = (0..runs.len())
+            .filter(|&k| runs[k].1.converged() || !any_converged)
+            .fold(None, |b: Option<usize>, k| match b {
+                Some(b) if runs[k].1.cost >= runs[b].1.cost - 1e-10 * runs[b].1.cost.abs() => {
+                    Some(b)
+                }
+                _ => Some(k),
+            })
+            .unwrap_or(0);
         let completed: Vec<Mat> = runs
             .iter()
             .map(|(_, s)| max_det_completion(&s.x, &ident.unconstrained_pairs).matrix)
@@ -386,29 +425,66 @@ impl AveragingScheme for AirmObserved {
         diagnostics.completed_pairs = ident.unconstrained_pairs.len();
         if !ident.unconstrained_pairs.is_empty() {
             diagnostics.notes.push(format!(
-                "{} channel pair(s) are never observed together; their covariances were set by the maximum-determinant completion",
+                "{} channel pair(s) are never observed together; their covariances were kept at the maximum-determinant completion throughout the solve",
                 ident.unconstrained_pairs.len()
             ));
         }
+        if sol.reason == StopReason::Boundary {
+            let v = VanishingDirection::of(&completed[best]);
+            let names: Vec<String> = v
+                .channels
+                .iter()
+                .map(|&(c, share)| format!("{} ({:.0}%)", set.channels()[c], 100.0 * share))
+                .collect();
+            diagnostics.notes.push(format!(
+                "no positive definite mean exists: the observed blocks are mutually inconsistent, and the cost keeps decreasing as the mean becomes singular (smallest correlation eigenvalue {:.1e}) along a direction spanned by {}. The last safely positive definite iterate is written. What to do: use a regularising scheme (shrinkage, diagonal-loading, gaussian-em), leave out one of these channels, or add trials that observe them together",
+                v.min_correlation_eigenvalue,
+                names.join(", ")
+            ));
+            diagnostics.boundary = Some(v);
+        }
         if runs.len() > 1 {
+            let pinned = pinned_pairs(set.n_channels(), &ident.unconstrained_pairs);
             diagnostics.starts = runs
                 .iter()
                 .zip(&completed)
-                .map(|((label, s), m)| StartOutcome {
-                    init: label.clone(),
-                    cost: s.cost,
-                    iterations: s.iterations,
-                    converged: s.converged(),
-                    distance_to_reported: airm_distance(&completed[best], m),
+                .map(|((label, s), m)| {
+                    let diff = pinned_difference(&completed[best], m, &pinned);
+                    let verdict = match s.reason {
+                        StopReason::Boundary => "ran to the boundary",
+                        _ if !s.converged() => "did not converge",
+                        _ if diff <= 1e-6 => "same mean",
+                        _ => "different local minimum",
+                    };
+                    StartOutcome {
+                        init: label.clone(),
+                        cost: s.cost,
+                        iterations: s.iterations,
+                        converged: s.converged(),
+                        distance_to_reported: airm_distance(&completed[best], m),
+                        determined_difference: diff,
+                        verdict: verdict.into(),
+                    }
                 })
                 .collect();
-            let agree = diagnostics
-                .starts
-                .iter()
-                .all(|s| s.distance_to_reported <= 1e-6);
+            // Only converged starts can testify about local minima.
+            let converged: Vec<&StartOutcome> =
+                diagnostics.starts.iter().filter(|s| s.converged).collect();
+            let agree = converged.iter().all(|s| s.verdict == "same mean");
             diagnostics.starts_agree = Some(agree);
             if !agree {
-                diagnostics.notes.push("the starts reached different means: the masked cost has more than one local minimum on these data; the lowest-cost mean is reported".into());
+                let costs: Vec<String> = converged
+                    .iter()
+                    .filter(|s| s.verdict != "same mean")
+                    .map(|s| format!("{} (cost {:.10e})", s.init, s.cost))
+                    .collect();
+                diagnostics.notes.push(format!("converged starts reached different means on the determined entries: the masked cost has more than one local minimum on these data. The lowest-cost mean (cost {:.10e}) is reported; other minima: {}", sol.cost, costs.join(", ")));
+            }
+            let stuck = diagnostics.starts.iter().filter(|s| !s.converged).count();
+            if stuck > 0 {
+                diagnostics.notes.push(format!(
+                    "{stuck} start(s) did not converge; they are listed but not compared"
+                ));
             }
         }
         Ok(MeanResult {

@@ -150,6 +150,7 @@ impl AveragingScheme for GaussianEm {
                     gradient_norm: change,
                     step: 1.0,
                     evaluations: iterations,
+                    min_correlation_eigenvalue: f64::NAN,
                 };
                 if let Some(obs) = &options.observer {
                     obs(&rec);

@@ -117,6 +117,12 @@ pub struct StartOutcome {
     pub converged: bool,
     /// Affine-invariant distance of its result to the reported mean.
     pub distance_to_reported: f64,
+    /// Largest difference from the reported mean over the entries the data
+    /// pin (co-observed pairs), relative to `sqrt(X_aa X_bb)`.
+    pub determined_difference: f64,
+    /// How this start ended, in words: "same mean", "different local
+    /// minimum", "did not converge" or "ran to the boundary".
+    pub verdict: String,
 }
 
 /// What a scheme reports about how it got its mean.
@@ -154,6 +160,39 @@ pub struct Diagnostics {
     /// Channels the mean actually estimates (None = all). Entries outside
     /// are placeholders; comparisons use the estimated block only.
     pub estimated_channels: Option<Vec<usize>>,
+    /// Set when the iterates ran to the boundary of the SPD cone (the cost
+    /// has no positive definite minimiser): the direction that vanishes.
+    pub boundary: Option<VanishingDirection>,
+}
+
+/// The direction along which a run to the boundary makes the mean singular.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct VanishingDirection {
+    /// Smallest eigenvalue of the returned mean's correlation matrix.
+    pub min_correlation_eigenvalue: f64,
+    /// Channels carrying the eigenvector, largest share first, with the share
+    /// of its squared length (shares of at least 5% are listed).
+    pub channels: Vec<(usize, f64)>,
+}
+
+impl VanishingDirection {
+    /// The smallest-eigenvalue direction of the correlation matrix of `x`.
+    pub fn of(x: &Mat) -> Self {
+        let p = x.nrows();
+        let d: Vec<f64> = (0..p).map(|a| x[(a, a)].max(f64::MIN_POSITIVE)).collect();
+        let r = Mat::from_fn(p, p, |a, b| x[(a, b)] / (d[a] * d[b]).sqrt());
+        let e = crate::spd::kernels::sym_eigen(&crate::spd::symmetrize(&r));
+        let v = e.vectors.column(0);
+        let mut channels: Vec<(usize, f64)> = (0..p)
+            .map(|c| (c, v[c] * v[c]))
+            .filter(|&(_, s)| s >= 0.05)
+            .collect();
+        channels.sort_by(|a, b| b.1.total_cmp(&a.1).then(a.0.cmp(&b.0)));
+        VanishingDirection {
+            min_correlation_eigenvalue: e.values[0],
+            channels,
+        }
+    }
 }
 
 impl Diagnostics {
@@ -175,6 +214,7 @@ impl Diagnostics {
             starts: Vec::new(),
             starts_agree: None,
             estimated_channels: None,
+            boundary: None,
         }
     }
 
@@ -204,6 +244,32 @@ pub struct MeanResult {
     pub mean: Mat,
     /// How it was obtained.
     pub diagnostics: Diagnostics,
+}
+
+impl MeanResult {
+    /// The mean as written to files: entries outside the estimated channels
+    /// (see [`Diagnostics::estimated_channels`]) are NaN, so no one mistakes
+    /// a placeholder for an estimate. Identical to `mean` when every channel
+    /// is estimated.
+    pub fn published(&self) -> Mat {
+        let Some(est) = &self.diagnostics.estimated_channels else {
+            return self.mean.clone();
+        };
+        let p = self.mean.nrows();
+        let mut keep = vec![false; p];
+        for &c in est {
+            if c < p {
+                keep[c] = true;
+            }
+        }
+        Mat::from_fn(p, p, |a, b| {
+            if keep[a] && keep[b] {
+                self.mean[(a, b)]
+            } else {
+                f64::NAN
+            }
+        })
+    }
 }
 
 /// The one question every scheme answers.
@@ -240,6 +306,34 @@ pub fn all_schemes() -> Vec<Box<dyn AveragingScheme>> {
 /// Looks a scheme up by name.
 pub fn scheme_by_name(name: &str) -> Option<Box<dyn AveragingScheme>> {
     all_schemes().into_iter().find(|s| s.name() == name)
+}
+
+/// The scheme name closest to `name` by edit distance (for "did you mean"),
+/// if one is within a third of the name's length.
+pub fn closest_scheme_name(name: &str) -> Option<&'static str> {
+    let names: Vec<&'static str> = all_schemes().iter().map(|s| s.name()).collect();
+    names
+        .into_iter()
+        .map(|n| (edit_distance(name, n), n))
+        .min()
+        .filter(|&(d, n)| d <= n.len().max(3) / 3)
+        .map(|(_, n)| n)
+}
+
+/// Levenshtein distance between two strings (by characters).
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut row: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut prev = row[0];
+        row[0] = i + 1;
+        for (j, &cb) in b.iter().enumerate() {
+            let cur = row[j + 1];
+            row[j + 1] = (prev + usize::from(ca != cb)).min(row[j] + 1).min(cur + 1);
+            prev = cur;
+        }
+    }
+    row[b.len()]
 }
 
 /// Weighted sum `Σ ŵ_i f(C_i)` over complete trials, reduced in a fixed order.

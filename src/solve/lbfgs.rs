@@ -17,10 +17,24 @@
 //!   `|⟨g(t), d⟩| ≤ 0.9 |⟨g(0), d⟩|` — the "approximate Wolfe" idea of Hager &
 //!   Zhang (2005, SIAM J. Optim.), which lets the gradient norm go down to its
 //!   own rounding floor instead of the cost's.
+//!
+//! Two additions for costs that are not strictly convex:
+//! - **flat directions**: when the problem offers a canonical representative
+//!   ([`SpdProblem::canonical`], e.g. the maximum-determinant completion of
+//!   entries no trial pins), every accepted iterate is moved there. The
+//!   Euclidean gradient is unchanged by the move, so the whitened gradient is
+//!   carried over as `Sᵀ g S`, `S = W⁻¹ W'`, and the memory pairs are
+//!   carried as the same ambient tangent vectors, `T s Tᵀ`, `T = W'⁻¹ W`;
+//! - **runs to the boundary**: the smallest eigenvalue of each iterate's
+//!   correlation matrix is tracked; the criterion of [`super::boundary`]
+//!   turns such a run into [`StopReason::Boundary`] instead of a convergence.
 
 use std::collections::VecDeque;
 
-use super::{Evaluation, IterRecord, Solution, SpdProblem, StopReason, StopRule, frob};
+use super::{
+    Evaluation, IterRecord, Solution, SpdProblem, StopReason, StopRule, boundary, frob,
+    min_correlation_eigenvalue,
+};
 use crate::spd::kernels::sym_eigen;
 use crate::spd::{Mat, symmetrize};
 
@@ -49,20 +63,36 @@ pub fn minimize(
         return None;
     }
     let mut w = e0.apply(f64::sqrt);
+    if let Some(x) = problem.canonical(&symmetrize(x0)) {
+        w = sym_eigen(&symmetrize(&x)).apply(|v| v.max(0.0).sqrt());
+    }
     let mut eval = problem.evaluate(&w)?;
     let mut evaluations = 1;
     let mut memory: VecDeque<(Mat, Mat, f64)> = VecDeque::with_capacity(MEMORY);
-    let mut trace = Vec::new();
+    let mut trace: Vec<IterRecord> = Vec::new();
     let mut step = 0.0;
     let mut iteration = 0;
+    // The last iterate that was safely inside the cone, to fall back to.
+    let mut previous: Option<(Mat, Evaluation)> = None;
     let reason = loop {
         let gnorm = frob(&eval.grad, &eval.grad).sqrt();
+        let r = min_correlation_eigenvalue(&(&w * w.transpose()));
+        if iteration > 0 && !(r > boundary::HARD_FLOOR) {
+            // Numerically singular: return the previous iterate.
+            if let Some((w_prev, e_prev)) = previous.take() {
+                w = w_prev;
+                eval = e_prev;
+                iteration -= 1;
+            }
+            break StopReason::Boundary;
+        }
         let rec = IterRecord {
             iteration,
             cost: eval.cost,
             gradient_norm: gnorm,
             step,
             evaluations,
+            min_correlation_eigenvalue: r,
         };
         if let Some(obs) = observer {
             obs(&rec);
@@ -116,12 +146,26 @@ pub fn minimize(
             }
             memory.push_back((s, y, 1.0 / sy));
         }
+        previous = Some((w.clone(), eval.clone()));
+        let (w_new, e_new) = match problem.canonical(&symmetrize(&(&w_new * w_new.transpose()))) {
+            Some(x) => {
+                let w_can = sym_eigen(&symmetrize(&x)).apply(|v| v.max(0.0).sqrt());
+                carry_over(&w_new, w_can, e_new, &mut memory)
+            }
+            None => (w_new, e_new),
+        };
         w = w_new;
         eval = e_new;
         step = t;
         iteration += 1;
     };
     let x = symmetrize(&(&w * w.transpose()));
+    let ratios: Vec<f64> = trace.iter().map(|r| r.min_correlation_eigenvalue).collect();
+    let reason = if reason != StopReason::Boundary && boundary::trend(&ratios) {
+        StopReason::Boundary
+    } else {
+        reason
+    };
     Some(Solution {
         x,
         cost: eval.cost,
@@ -131,6 +175,39 @@ pub fn minimize(
         reason,
         trace,
     })
+}
+
+/// Moves the iterate from factor `w` to the canonical factor `w_can` (same
+/// cost, same Euclidean gradient `∇F`): the whitened gradient `Wᵀ ∇F W`
+/// becomes `Sᵀ g S` with `S = W⁻¹ W'`, and each memory vector, read as an
+/// ambient tangent vector `W s Wᵀ`, is re-whitened at `W'`. Pairs that lose
+/// positive curvature in the move are dropped (the cautious rule).
+fn carry_over(
+    w: &Mat,
+    w_can: Mat,
+    mut e: Evaluation,
+    memory: &mut VecDeque<(Mat, Mat, f64)>,
+) -> (Mat, Evaluation) {
+    let Some(w_inv) = w.clone().try_inverse() else {
+        return (w.clone(), e);
+    };
+    let Some(wc_inv) = w_can.clone().try_inverse() else {
+        return (w.clone(), e);
+    };
+    let s_map = &w_inv * &w_can;
+    e.grad = symmetrize(&(s_map.transpose() * &e.grad * &s_map));
+    let t_map = &wc_inv * w;
+    let old: Vec<(Mat, Mat, f64)> = memory.drain(..).collect();
+    for (s, y, _) in old {
+        let s2 = symmetrize(&(&t_map * s * t_map.transpose()));
+        let y2 = symmetrize(&(&t_map * y * t_map.transpose()));
+        let sy = frob(&s2, &y2);
+        let (sn, yn) = (frob(&s2, &s2).sqrt(), frob(&y2, &y2).sqrt());
+        if sy > 1e-10 * sn * yn {
+            memory.push_back((s2, y2, 1.0 / sy));
+        }
+    }
+    (w_can, e)
 }
 
 /// L-BFGS two-loop recursion: returns `-H g`. With an empty memory the

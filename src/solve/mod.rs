@@ -38,6 +38,15 @@ pub trait SpdProblem: Sync {
     /// there (a sub-block not positive definite numerically), which the line
     /// search treats as "step too long".
     fn evaluate(&self, w: &Mat) -> Option<Evaluation>;
+    /// Moves `X` along directions the cost cannot see (entries no term depends
+    /// on) to one canonical representative, or `None` when the cost has no
+    /// such directions. Must leave the cost *and* the Euclidean gradient
+    /// unchanged, so the solver can carry its gradient over without a new
+    /// evaluation. Without it a flat direction lets the iterates drift
+    /// towards the boundary of the cone, where progress stalls.
+    fn canonical(&self, _x: &Mat) -> Option<Mat> {
+        None
+    }
 }
 
 /// When to stop, and how to report it.
@@ -71,6 +80,11 @@ pub struct IterRecord {
     pub step: f64,
     /// Cost evaluations spent so far.
     pub evaluations: usize,
+    /// Smallest eigenvalue of the iterate's correlation matrix
+    /// `D^{-1/2} X D^{-1/2}` (`D = diag X`): 1 for a diagonal iterate, towards
+    /// 0 as it approaches the boundary of the cone. Unit-free; NaN when the
+    /// solver does not track it.
+    pub min_correlation_eigenvalue: f64,
 }
 
 /// Why the solver stopped.
@@ -84,6 +98,53 @@ pub enum StopReason {
     /// No step along a descent direction decreased the cost: the iterate sits
     /// at the floor set by rounding; the gradient norm tells how close.
     LineSearchStalled,
+    /// The iterates ran towards the boundary of the SPD cone while the cost
+    /// kept decreasing: the cost has no minimiser among positive definite
+    /// matrices (see [`boundary`] for the criterion). The last iterate that
+    /// is safely positive definite is returned.
+    Boundary,
+}
+
+/// The documented criterion that tells a run to the boundary of the cone from
+/// convergence to an ill-conditioned minimiser (docs/masked-mean.md).
+pub mod boundary {
+    /// An iterate whose correlation matrix has a smallest eigenvalue at or
+    /// below this is numerically singular: the solver stops there at once.
+    pub const HARD_FLOOR: f64 = 1e-12;
+    /// Below this smallest correlation eigenvalue a run is examined for a trend.
+    pub const SUSPECT: f64 = 1e-6;
+    /// A fall by at least this factor over the second half of the run, ending
+    /// below [`SUSPECT`], is a run to the boundary: near a true minimiser the
+    /// late iterates barely move, so their spectrum is stable.
+    pub const FALL: f64 = 100.0;
+    /// Fewest accepted iterations for the trend test.
+    pub const MIN_ITERATIONS: usize = 6;
+
+    /// Applies the trend test to a trace of smallest correlation eigenvalues.
+    pub fn trend(trace: &[f64]) -> bool {
+        let n = trace.len();
+        if n <= MIN_ITERATIONS {
+            return false;
+        }
+        let last = trace[n - 1];
+        let mid = trace[(n - 1) / 2];
+        last < SUSPECT && last * FALL <= mid
+    }
+}
+
+/// Smallest eigenvalue of the correlation matrix of `x` (NaN if `x` has a
+/// non-positive diagonal entry).
+pub fn min_correlation_eigenvalue(x: &Mat) -> f64 {
+    let p = x.nrows();
+    let d: Vec<f64> = (0..p).map(|a| x[(a, a)]).collect();
+    if d.iter().any(|&v| !(v > 0.0)) {
+        return f64::NAN;
+    }
+    let r = Mat::from_fn(p, p, |a, b| x[(a, b)] / (d[a] * d[b]).sqrt());
+    crate::spd::kernels::sym_eigenvalues(&crate::spd::symmetrize(&r))
+        .first()
+        .copied()
+        .unwrap_or(f64::NAN)
 }
 
 /// What the solver returns.

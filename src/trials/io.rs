@@ -394,7 +394,17 @@ pub fn encode_matrix(path: &Path, m: &Mat, channels: &[String]) -> Vec<u8> {
         let mut s = channels.join(",");
         s.push('\n');
         for i in 0..p {
-            let row: Vec<String> = (0..p).map(|j| format!("{:.17e}", m[(i, j)])).collect();
+            // NaN (not estimated) is an empty cell.
+            let row: Vec<String> = (0..p)
+                .map(|j| {
+                    let v = m[(i, j)];
+                    if v.is_nan() {
+                        String::new()
+                    } else {
+                        format!("{v:.17e}")
+                    }
+                })
+                .collect();
             s.push_str(&row.join(","));
             s.push('\n');
         }
@@ -422,6 +432,10 @@ pub fn read_matrix(path: &Path) -> Result<Mat> {
         for (r, rec) in rdr.records().enumerate() {
             let rec = rec.map_err(|e| format_err(path, e.to_string()))?;
             for (c, cell) in rec.iter().enumerate() {
+                if cell.trim().is_empty() {
+                    vals.push(f64::NAN); // a cell the scheme did not estimate
+                    continue;
+                }
                 vals.push(cell.trim().parse::<f64>().map_err(|_| {
                     format_err(
                         path,

@@ -1,0 +1,205 @@
+//! Awkward input through the command line: where no positive definite mean
+//! exists, where a scheme estimates only part of the mean, and where a
+//! supporting file does not match the trial set. Exit 0 must mean a correct
+//! answer; everything else says why.
+
+mod common;
+
+use common::{Dir, lacuna, s};
+
+use lacuna::simulate::rng::Rng;
+use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
+use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
+use lacuna::trials::npy::encode_f64;
+
+/// The three-trial 3-cycle: pairs {0,1}, {1,2}, {0,2} with correlations
+/// +0.8, +0.8, −0.8 and NaN outside each observed pair.
+fn three_cycle(d: &Dir) -> std::path::PathBuf {
+    let mut data = vec![f64::NAN; 27];
+    for (i, (a, b, r)) in [(0, 1, 0.8), (1, 2, 0.8), (0, 2, -0.8)]
+        .into_iter()
+        .enumerate()
+    {
+        let at = |x: usize, y: usize| i * 9 + x * 3 + y;
+        data[at(a, a)] = 1.0;
+        data[at(b, b)] = 1.0;
+        data[at(a, b)] = r;
+        data[at(b, a)] = r;
+    }
+    d.write("cycle.npy", &encode_f64(&[3, 3, 3], &data))
+}
+
+// Grone, Johnson, Sá & Wolkowicz 1984 (Linear Algebra Appl. 58): this partial
+// correlation matrix has no positive definite completion, so there is no SPD
+// minimiser. The CLI must exit 4, still write the (positive definite) mean and a
+// report that names the inconsistency and the channels.
+#[test]
+fn inconsistent_cycle_exits_4_with_reason() {
+    let d = Dir::new("cycle");
+    let covs = three_cycle(&d);
+    let (out, rep) = (d.path("m.csv"), d.path("r.json"));
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--out",
+        s(&out),
+        "--report",
+        s(&rep),
+    ]);
+    assert_eq!(code, 4, "{err}");
+    assert!(err.contains("boundary"), "{err}");
+    assert!(err.contains("mutually inconsistent"), "{err}");
+    assert!(out.exists() && rep.exists());
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["converged"], false);
+    assert_eq!(r["stop_reason"], "boundary");
+    assert_eq!(r["boundary"]["channels"].as_array().unwrap().len(), 3);
+    let m = lacuna::trials::io::read_matrix(&out).unwrap();
+    assert!(
+        lacuna::spd::kernels::cholesky(&m).is_some(),
+        "written mean must be PD"
+    );
+}
+
+fn small_set(d: &Dir, n: usize, p: usize, seed: u64) -> (std::path::PathBuf, std::path::PathBuf) {
+    let mut rng = Rng::new(seed);
+    let sigma = random_spd(p, 20.0, &mut rng);
+    let full: Vec<_> = (0..n)
+        .map(|_| sample_covariance(&sigma, 40, &mut rng))
+        .collect();
+    let set = masked_set(&full, random_dropout(n, p, 0.3, 2, &mut rng));
+    (
+        d.write("covs.npy", &encode_stack_with_nan(&set)),
+        d.write("mask.npy", &encode_mask(&set)),
+    )
+}
+
+// Common practice, no source: entries a scheme did not estimate are written as
+// empty CSV cells (NaN in NPY), never as invented numbers.
+#[test]
+fn common_channels_leaves_unestimated_entries_empty() {
+    let d = Dir::new("common");
+    // Channels 4 and 5 each drop out of some trials; 0–3 are always observed.
+    let mut rng = Rng::new(3);
+    let sigma = random_spd(6, 20.0, &mut rng);
+    let full: Vec<_> = (0..40)
+        .map(|_| sample_covariance(&sigma, 40, &mut rng))
+        .collect();
+    let obs: Vec<Vec<usize>> = (0..40)
+        .map(|i| match i % 4 {
+            0 => vec![0, 1, 2, 3, 5],
+            1 => vec![0, 1, 2, 3, 4],
+            _ => (0..6).collect(),
+        })
+        .collect();
+    let set = masked_set(&full, obs);
+    let covs = d.write("covs.npy", &encode_stack_with_nan(&set));
+    let mask = d.write("mask.npy", &encode_mask(&set));
+    let out = d.path("m.csv");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--scheme",
+        "common-channels",
+        "--out",
+        s(&out),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let m = lacuna::trials::io::read_matrix(&out).unwrap();
+    let text = std::fs::read_to_string(&out).unwrap();
+    let nan_rows = (0..6).filter(|&a| m[(a, a)].is_nan()).count();
+    assert!(
+        nan_rows > 0,
+        "the random dropout leaves some channel out of a trial"
+    );
+    assert!(text.contains(",,") || text.lines().any(|l| l.ends_with(',') || l.starts_with(',')));
+    for a in 0..6 {
+        for b in 0..6 {
+            assert_eq!(m[(a, b)].is_nan(), m[(a, a)].is_nan() || m[(b, b)].is_nan());
+        }
+    }
+}
+
+// Common practice, no source: a misspelt scheme is a usage error that suggests the
+// closest name, and nothing is written.
+#[test]
+fn compare_refuses_unknown_scheme_names() {
+    let d = Dir::new("typo");
+    let (covs, mask) = small_set(&d, 30, 5, 4);
+    let out = d.path("cmp");
+    let (code, _, err) = lacuna(&[
+        "compare",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--schemes",
+        "airm-observed,shrinkge",
+        "--out",
+        s(&out),
+        "--quiet",
+    ]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("'shrinkge'") && err.contains("did you mean 'shrinkage'"),
+        "{err}"
+    );
+    assert!(!out.exists());
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--scheme",
+        "airm-observd",
+        "--out",
+        s(&d.path("m.npy")),
+    ]);
+    assert_eq!(code, 2);
+    assert!(err.contains("did you mean 'airm-observed'"), "{err}");
+}
+
+// Common practice, no source: an epochs.json from another extraction is refused
+// (exit 3, nothing written) instead of drawing a wrong dropout raster.
+#[test]
+fn compare_refuses_epochs_of_another_trial_set() {
+    let d = Dir::new("epochs");
+    let (covs, mask) = small_set(&d, 30, 5, 5);
+    let names: Vec<String> = (0..5).map(|c| format!("ch{c}")).collect();
+    let epochs: Vec<serde_json::Value> = (0..12)
+        .map(|e| serde_json::json!({"epoch": e, "trial": e, "masked": []}))
+        .collect();
+    let doc = serde_json::json!({"channels": names, "epochs": epochs});
+    let ep = d.write("epochs.json", doc.to_string().as_bytes());
+    let (out, html) = (d.path("cmp"), d.path("r.html"));
+    let (code, _, err) = lacuna(&[
+        "compare",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--schemes",
+        "airm-observed,shrinkage",
+        "--no-validation",
+        "--no-leave-out",
+        "--out",
+        s(&out),
+        "--html",
+        s(&html),
+        "--epochs",
+        s(&ep),
+        "--quiet",
+    ]);
+    assert_eq!(code, 3, "{err}");
+    assert!(
+        err.contains("epochs.json") && err.contains("12 kept epochs"),
+        "{err}"
+    );
+    assert!(!out.exists() && !html.exists());
+}
