@@ -78,6 +78,17 @@ pub enum LacunaError {
     /// A scheme or option was asked for something the data cannot give.
     #[error("{0}")]
     Unsupported(String),
+    /// A scheme that averages on the SPD manifold met a rank-deficient block.
+    #[error(
+        "scheme '{scheme}' needs full-rank observed blocks, but trial {trial} has rank {rank} of {size} ({count} rank-deficient trial(s) in all). Regularise first (--regularize shrinkage:0.1, loading:0.01, or oas with --samples T), or choose a scheme that takes such windows: shrinkage, diagonal-loading, gaussian-em, available-case, subspace"
+    )]
+    RankDeficient {
+        scheme: String,
+        trial: usize,
+        rank: usize,
+        size: usize,
+        count: usize,
+    },
     /// An option value is out of range.
     #[error("invalid option: {0}")]
     InvalidOption(String),
@@ -94,7 +105,8 @@ impl LacunaError {
             LacunaError::Read { .. }
             | LacunaError::Format { .. }
             | LacunaError::InvalidTrials { .. }
-            | LacunaError::Unsupported(_) => 3,
+            | LacunaError::Unsupported(_)
+            | LacunaError::RankDeficient { .. } => 3,
             LacunaError::InvalidOption(_) => 2,
             LacunaError::Numerical(_) => 4,
             LacunaError::Write { .. } => 1,

@@ -183,8 +183,12 @@ fn refuses_non_symmetric_matrix() {
     );
 }
 
+// A duplicated channel makes a block singular (rank 2 of 3): data, not an error.
+// Riemannian schemes refuse it naming the rank; regularising schemes take it; an
+// indefinite block is refused naming trial, channel and eigenvalue (common
+// practice, no source).
 #[test]
-fn refuses_block_that_is_not_positive_definite() {
+fn singular_blocks_are_ranked_and_indefinite_ones_refused() {
     let d = Dir::new("notpd");
     let mut data = complete_stack(4, 3);
     // Trial 1: channel 2 duplicates channel 1.
@@ -198,10 +202,41 @@ fn refuses_block_that_is_not_positive_definite() {
     expect_refusal(
         &["mean", "--covs", s(&covs), "--out", s(&out)],
         &out,
+        &["trial 1 has rank 2 of 3", "--regularize"],
+    );
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--scheme",
+        "shrinkage",
+        "--out",
+        s(&out),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(err.contains("1 of 4 trials are rank-deficient"), "{err}");
+    // Trial 2: correlation 1.5 between channels 0 and 1 is indefinite.
+    let mut bad = complete_stack(4, 3);
+    let v = 1.5 * (bad[18] * bad[18 + 4]).sqrt();
+    bad[18 + 1] = v;
+    bad[18 + 3] = v;
+    let covs = d.write("bad.npy", &encode_f64(&[4, 3, 3], &bad));
+    let out = d.path("m2.npy");
+    expect_refusal(
         &[
-            "trial 1, channel ch2",
-            "not positive definite",
-            "observed channels: ch0, ch1, ch2",
+            "mean",
+            "--covs",
+            s(&covs),
+            "--scheme",
+            "shrinkage",
+            "--out",
+            s(&out),
+        ],
+        &out,
+        &[
+            "trial 2, channel ch1",
+            "indefinite beyond rounding",
+            "eigenvalue -",
         ],
     );
 }

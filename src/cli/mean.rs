@@ -62,6 +62,13 @@ pub struct MeanArgs {
     /// trial's OAS intensity instead of the fixed --shrinkage.
     #[arg(long, value_name = "T")]
     samples: Option<usize>,
+    /// Regularise every observed block before averaging, for rank-deficient
+    /// windows (average reference, removed components, short windows):
+    /// `shrinkage:α` gives (1−α)C + α(tr C/k)I, `loading:λ` gives
+    /// C + λ(tr C/k)I, `oas` the OAS intensity for --samples T. Works with
+    /// every scheme, airm-observed included; recorded in the report.
+    #[arg(long, value_name = "SPEC")]
+    regularize: Option<String>,
     /// Rank of --scheme subspace (default: 99% of the available-case trace,
     /// capped at the fewest channels any trial observed).
     #[arg(long)]
@@ -156,6 +163,13 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             None => None,
         },
         warm_start: None,
+        regularize: match &a.regularize {
+            Some(spec) => Some(
+                lacuna::schemes::regularize::Regularizer::parse(spec, a.samples)
+                    .map_err(|e| LacunaError::InvalidOption(format!("--regularize {e}")))?,
+            ),
+            None => None,
+        },
     };
     let result = scheme.average(&set, &options)?;
     if show_progress {
@@ -174,6 +188,10 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         elapsed,
         rayon::current_num_threads(),
     );
+    let ranks = lacuna::diagnose::rank_table(&set, a.samples);
+    let mut report = report;
+    report.ranks = Some(&ranks);
+    report.regularizer = options.regularize;
     let json = report.to_json();
     if let Some(path) = &a.report {
         write_atomic(path, json.as_bytes())?;
@@ -190,6 +208,15 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             set.n_channels(),
             result.scheme
         );
+        if let Some(line) = ranks.summary_line() {
+            eprintln!(
+                "  {line}{}",
+                match options.regularize {
+                    Some(r) => format!("; regularised first by {}", r.label()),
+                    None => String::new(),
+                }
+            );
+        }
         if !dropped.is_empty() {
             eprintln!(
                 "  dropped channels observed in no trial: {}",

@@ -373,7 +373,7 @@ impl AveragingScheme for AirmObserved {
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let ident = identifiability(set);
         if let Some(&c) = ident.never_observed.first() {
             return Err(LacunaError::Unsupported(format!(

@@ -68,7 +68,7 @@ impl AveragingScheme for CompleteTrials {
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let keep: Vec<usize> = (0..set.len())
             .filter(|&i| set.is_complete(i) && set.weights()[i] > 0.0)
             .collect();
@@ -93,13 +93,17 @@ impl AveragingScheme for AvailableCase {
     fn name(&self) -> &'static str {
         "available-case"
     }
+    /// Accepts rank-deficient blocks: a Euclidean average of observed entries.
+    fn accepts_rank_deficient(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "entry-wise weighted average over trials observing both channels, projected to SPD"
     }
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
         let counts = set.coobservation_counts();
         let p = set.n_channels();
         if let Some(c) = (0..p).find(|&c| counts[c][c] == 0) {
@@ -158,13 +162,17 @@ impl AveragingScheme for DiagonalLoading {
     fn name(&self) -> &'static str {
         "diagonal-loading"
     }
+    /// Accepts rank-deficient blocks: every block is loaded before averaging.
+    fn accepts_rank_deficient(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "zero-fill unobserved channels, add λ·(trace/p)·I to every trial, Karcher mean"
     }
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let lambda = options.loading;
         if !(lambda > 0.0) {
             return Err(LacunaError::InvalidOption(format!(
@@ -203,13 +211,17 @@ impl AveragingScheme for Shrinkage {
     fn name(&self) -> &'static str {
         "shrinkage"
     }
+    /// Accepts rank-deficient blocks: every block is shrunk before averaging.
+    fn accepts_rank_deficient(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "fill unobserved channels (zero covariance, mean variance), shrink towards (trace/p)·I by α, Karcher mean"
     }
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let alpha = options.shrinkage;
         if !(alpha > 0.0 && alpha <= 1.0) {
             return Err(LacunaError::InvalidOption(format!(

@@ -25,13 +25,17 @@ impl AveragingScheme for Arithmetic {
     fn name(&self) -> &'static str {
         "arithmetic"
     }
+    /// Accepts rank-deficient blocks: a Euclidean average.
+    fn accepts_rank_deficient(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "weighted entry-wise average of complete trials"
     }
     fn handles_missing(&self) -> bool {
         false
     }
-    fn average(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
         let blocks = trials.complete_blocks(self.name())?;
         let mean = symmetrize(&weighted_sum(&blocks, &trials.normalized_weights(), |c| {
             c.clone()
@@ -54,7 +58,7 @@ impl AveragingScheme for Harmonic {
     fn handles_missing(&self) -> bool {
         false
     }
-    fn average(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
         let blocks = trials.complete_blocks(self.name())?;
         let s = weighted_sum(&blocks, &trials.normalized_weights(), inv_spd);
         Ok(MeanResult {
@@ -75,7 +79,7 @@ impl AveragingScheme for LogEuclidean {
     fn handles_missing(&self) -> bool {
         false
     }
-    fn average(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, trials: &TrialSet, _: &SchemeOptions) -> Result<MeanResult> {
         let blocks = trials.complete_blocks(self.name())?;
         let s = weighted_sum(&blocks, &trials.normalized_weights(), logm_spd);
         Ok(MeanResult {

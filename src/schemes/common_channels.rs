@@ -24,7 +24,7 @@ impl AveragingScheme for CommonChannels {
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let p = set.n_channels();
         let counts = set.coobservation_counts();
         let common: Vec<usize> = (0..p).filter(|&c| counts[c][c] == set.len()).collect();

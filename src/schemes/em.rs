@@ -55,13 +55,17 @@ impl AveragingScheme for GaussianEm {
     fn name(&self) -> &'static str {
         "gaussian-em"
     }
+    /// Accepts rank-deficient blocks: the blocks enter only as sufficient statistics of a positive definite model.
+    fn accepts_rank_deficient(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "Gaussian maximum likelihood over the observed blocks, by EM (the statistician's answer)"
     }
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let p = set.n_channels();
         let ident = crate::diagnose::identifiability(set);
         if let Some(&c) = ident.never_observed.first() {

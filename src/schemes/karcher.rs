@@ -86,7 +86,7 @@ impl AveragingScheme for Karcher {
     fn handles_missing(&self) -> bool {
         false
     }
-    fn average(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         trials.complete_blocks(self.name())?;
         let (start, start_note) = starting_point(trials)?;
         let problem = MaskedKarcherProblem::new(trials);

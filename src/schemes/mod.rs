@@ -15,6 +15,7 @@ mod closed_form;
 mod common_channels;
 mod em;
 mod karcher;
+pub mod regularize;
 mod spherical_spline;
 mod subspace;
 
@@ -67,6 +68,8 @@ pub struct SchemeOptions {
     /// A starting point for `airm-observed` (re-solves after small changes
     /// to the data: leave-one-channel-out, bootstrap).
     pub warm_start: Option<Arc<Mat>>,
+    /// Regularise every observed block before averaging (regularise-then-average).
+    pub regularize: Option<regularize::Regularizer>,
 }
 
 impl Default for SchemeOptions {
@@ -83,6 +86,7 @@ impl Default for SchemeOptions {
             rank: None,
             positions: None,
             warm_start: None,
+            regularize: None,
         }
     }
 }
@@ -100,6 +104,7 @@ impl std::fmt::Debug for SchemeOptions {
             .field("rank", &self.rank)
             .field("positions", &self.positions.as_ref().map(|p| p.len()))
             .field("warm_start", &self.warm_start.is_some())
+            .field("regularize", &self.regularize)
             .finish()
     }
 }
@@ -280,8 +285,50 @@ pub trait AveragingScheme: Sync + Send {
     fn summary(&self) -> &'static str;
     /// Whether the scheme accepts trials with unobserved channels.
     fn handles_missing(&self) -> bool;
-    /// Computes the mean.
-    fn average(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult>;
+    /// Whether the scheme accepts rank-deficient observed blocks. Schemes
+    /// that average on the SPD manifold need full rank (default `false`);
+    /// regularising and Euclidean schemes override this.
+    fn accepts_rank_deficient(&self) -> bool {
+        false
+    }
+    /// Computes the mean from a set that passed the shared checks of
+    /// [`AveragingScheme::average`]. Call `average`, not this.
+    fn compute(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult>;
+
+    /// Computes the mean: applies `options.regularize` (if any), refuses
+    /// rank-deficient blocks when the scheme needs full rank (naming the
+    /// trial, its rank and the regularisers that would serve), then runs the
+    /// scheme. The regulariser is recorded in the notes.
+    fn average(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+        let regularised;
+        let mut note = None;
+        let set = match &options.regularize {
+            Some(r) => {
+                let (s, n) = r.apply(trials)?;
+                regularised = s;
+                note = Some(n);
+                &regularised
+            }
+            None => trials,
+        };
+        if !self.accepts_rank_deficient() {
+            let deficient = set.rank_deficient();
+            if let Some(&i) = deficient.first() {
+                return Err(crate::error::LacunaError::RankDeficient {
+                    scheme: self.name().to_string(),
+                    trial: i,
+                    rank: set.rank(i),
+                    size: set.trials()[i].observed.len(),
+                    count: deficient.len(),
+                });
+            }
+        }
+        let mut r = self.compute(set, options)?;
+        if let Some(n) = note {
+            r.diagnostics.notes.insert(0, n);
+        }
+        Ok(r)
+    }
 }
 
 /// Every scheme lacuna knows, in the order they are listed to users.

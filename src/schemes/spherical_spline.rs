@@ -86,7 +86,7 @@ impl AveragingScheme for SphericalSpline {
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let p = set.n_channels();
         let positions = options.positions.as_ref().ok_or_else(|| {
             LacunaError::Unsupported(

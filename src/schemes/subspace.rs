@@ -28,13 +28,17 @@ impl AveragingScheme for Subspace {
     fn name(&self) -> &'static str {
         "subspace"
     }
+    /// Accepts rank-deficient blocks: the rank is capped at the smallest trial rank, so every compressed block is full rank.
+    fn accepts_rank_deficient(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "compress trials to the leading eigenvectors of the available-case mean, Karcher mean there, map back"
     }
     fn handles_missing(&self) -> bool {
         true
     }
-    fn average(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+    fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let p = set.n_channels();
         let a = AvailableCase.average(set, options)?.mean;
         let e = sym_eigen(&a);
@@ -42,17 +46,13 @@ impl AveragingScheme for Subspace {
         let mut order: Vec<usize> = (0..p).collect();
         order.sort_by(|&i, &j| e.values[j].total_cmp(&e.values[i]));
         let total: f64 = e.values.iter().sum();
-        let fewest = set
-            .trials()
-            .iter()
-            .map(|t| t.observed.len())
-            .min()
-            .unwrap_or(p);
+        // The fewest channels any trial observed, or its rank when lower.
+        let fewest = (0..set.len()).map(|i| set.rank(i)).min().unwrap_or(p);
         let r = match options.rank {
             Some(r) if r >= 1 && r <= fewest => r,
             Some(r) => {
                 return Err(LacunaError::InvalidOption(format!(
-                    "--rank {r}: must be between 1 and {fewest} (the fewest channels any trial observed)"
+                    "--rank {r}: must be between 1 and {fewest} (the fewest channels any trial observed, or the lowest trial rank)"
                 )));
             }
             None => {

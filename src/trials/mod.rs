@@ -6,8 +6,12 @@
 //! them and gets an error naming the first incomplete trial.
 //!
 //! Validation runs once, in [`TrialSet::new`]; everything downstream trusts
-//! the set: blocks are finite, symmetric (symmetrised) and positive definite,
-//! every trial observes at least one channel, and weights are usable.
+//! the set: blocks are finite, symmetric (symmetrised) and positive
+//! semidefinite, every trial observes at least one channel, and weights are
+//! usable. Each block's numerical rank is recorded ([`TrialSet::rank`]):
+//! rank-deficient windows (average reference, removed components, windows
+//! shorter than the channel count) are data, not errors; the schemes that
+//! need full rank say so ([`crate::schemes::AveragingScheme::accepts_rank_deficient`]).
 
 pub mod io;
 pub mod npy;
@@ -45,6 +49,28 @@ pub struct TrialSet {
     pub labels: Option<Vec<String>>,
     /// Optional session id per trial.
     pub sessions: Option<Vec<String>>,
+    /// Numerical rank of each trial's observed block.
+    ranks: Vec<usize>,
+}
+
+/// The rank rule: eigenvalues above `k · ε · λ_max` count (numpy's
+/// `matrix_rank` default; k the block size). A block whose smallest
+/// eigenvalue is below `−100 ×` that tolerance is indefinite beyond rounding.
+pub fn rank_tolerance(k: usize, lambda_max: f64) -> f64 {
+    k as f64 * f64::EPSILON * lambda_max
+}
+
+/// Numerical rank of a symmetric positive semidefinite block, or the most
+/// negative eigenvalue when it is indefinite beyond rounding, or `None` when
+/// the block is zero.
+fn psd_rank(block: &Mat) -> std::result::Result<usize, f64> {
+    let ev = crate::spd::kernels::sym_eigenvalues(block);
+    let (lo, hi) = (ev[0], ev[ev.len() - 1]);
+    let tol = rank_tolerance(block.nrows(), hi.max(0.0));
+    if lo < -100.0 * tol || !(hi > 0.0) {
+        return Err(lo);
+    }
+    Ok(ev.iter().filter(|&&v| v > tol).count())
 }
 
 /// Trials sharing one observation pattern.
@@ -76,6 +102,7 @@ impl TrialSet {
                 message: "the set holds no trials".into(),
             });
         }
+        let mut ranks = vec![0; trials.len()];
         for (i, t) in trials.iter_mut().enumerate() {
             if t.observed.is_empty() {
                 problems.push(TrialProblem {
@@ -93,8 +120,36 @@ impl TrialSet {
                 });
                 continue;
             }
+            let k = t.observed.len();
             match check_spd(&t.block) {
-                Ok(()) => t.block = crate::spd::symmetrize(&t.block),
+                Ok(()) => {
+                    // Cholesky succeeds on some exactly singular blocks (the
+                    // last pivot is rounding); the rank is decided below from
+                    // the eigenvalues.
+                    t.block = crate::spd::symmetrize(&t.block);
+                    ranks[i] = k;
+                }
+                Err(SpdDefect::NotPositiveDefinite { row, .. }) => {
+                    let sym = crate::spd::symmetrize(&t.block);
+                    match psd_rank(&sym) {
+                        Ok(r) => {
+                            t.block = sym;
+                            ranks[i] = r;
+                        }
+                        Err(lo) => problems.push(TrialProblem {
+                            trial: Some(i),
+                            channel: Some(name(t.observed[row])),
+                            message: if lo.is_nan() || lo >= 0.0 {
+                                "every observed channel has zero variance (no signal): mark them unobserved in the mask".to_string()
+                            } else {
+                                format!(
+                                    "observed block is indefinite beyond rounding: eigenvalue {lo:.3e} (the first failing Cholesky pivot is at this channel; observed channels: {}); a covariance is never indefinite — check how it was computed",
+                                    t.observed.iter().map(|&c| name(c)).collect::<Vec<_>>().join(", ")
+                                )
+                            },
+                        }),
+                    }
+                }
                 Err(SpdDefect::NonFinite { row, col }) => problems.push(TrialProblem {
                     trial: Some(i),
                     channel: Some(name(t.observed[row])),
@@ -105,15 +160,22 @@ impl TrialSet {
                     channel: Some(name(t.observed[row])),
                     message: format!("matrix is not symmetric (relative asymmetry {relative:.2e} > 1e-10); largest mismatch in this channel's row"),
                 }),
-                Err(SpdDefect::NotPositiveDefinite { row, pivot }) => problems.push(TrialProblem {
-                    trial: Some(i),
-                    channel: Some(name(t.observed[row])),
-                    message: format!(
-                        "observed block is not positive definite: Cholesky pivot {pivot:.3e} at this channel (observed channels: {}); the channel is constant or a combination of the earlier ones (re-referenced, bridged or interpolated?)",
-                        t.observed.iter().map(|&c| name(c)).collect::<Vec<_>>().join(", ")
-                    ),
-                }),
             }
+        }
+        {
+            use rayon::prelude::*;
+            let found: Vec<usize> = trials
+                .par_iter()
+                .zip(ranks.par_iter())
+                .map(|(t, &r)| {
+                    if r == t.observed.len() && r > 0 {
+                        psd_rank(&t.block).unwrap_or(r)
+                    } else {
+                        r
+                    }
+                })
+                .collect();
+            ranks = found;
         }
         let n = trials.len();
         let weights = match weights {
@@ -158,6 +220,7 @@ impl TrialSet {
             weights,
             labels: None,
             sessions: None,
+            ranks,
         })
     }
 
@@ -184,6 +247,18 @@ impl TrialSet {
     /// The trials.
     pub fn trials(&self) -> &[Trial] {
         &self.trials
+    }
+
+    /// Numerical rank of trial `i`'s observed block (see [`rank_tolerance`]).
+    pub fn rank(&self, i: usize) -> usize {
+        self.ranks[i]
+    }
+
+    /// Trials whose observed block is rank-deficient, in order.
+    pub fn rank_deficient(&self) -> Vec<usize> {
+        (0..self.len())
+            .filter(|&i| self.ranks[i] < self.trials[i].observed.len())
+            .collect()
     }
 
     /// Raw weights as given (default 1).
