@@ -12,8 +12,8 @@ use super::progress::Progress;
 use lacuna::diagnose::{ContributionOptions, contributions, identifiability};
 use lacuna::schemes::MeanResult;
 use lacuna::select::{
-    SelectOptions, decoding, default_candidates, held_out_fit, matching_blocks, recommend,
-    simulated_dropout,
+    FitCriterion, SelectOptions, Target, decoding, default_candidates, held_out_fit,
+    matching_blocks, recommend, regularized_candidates, simulated_dropout,
 };
 use lacuna::spd::distance::airm_distance;
 use lacuna::spd::{Mat, condition_number, log_det};
@@ -32,6 +32,14 @@ use serde_json::json;
 Writes comparison/means/<scheme>.npy and .csv, comparison.csv, distances.csv,
 validation.csv, contributions.csv and compare.json.")]
 pub struct CompareArgs {
+    /// What the mean is for: `centre` (the Riemannian centre, for
+    /// minimum-distance decoding and re-centring; a common scale factor is
+    /// harmless) or `population` (the population covariance, for spatial
+    /// filters, whitening, source models and power across window lengths).
+    /// It decides the references the schemes are ranked against; the report
+    /// always states it.
+    #[arg(long, default_value = "centre", value_parser = ["centre", "population"])]
+    target: String,
     /// Covariance stack: NPY float64 (N, p, p), NaN where unobserved allowed.
     #[arg(long, value_name = "STACK.npy")]
     covs: PathBuf,
@@ -217,7 +225,18 @@ pub fn run(a: CompareArgs) -> Result<i32> {
             )));
         }
     }
-    let candidates = default_candidates(&base, &a.schemes);
+    let target = if a.target == "population" {
+        Target::Population
+    } else {
+        Target::Centre
+    };
+    let ranks = lacuna::diagnose::rank_table(&set, a.samples);
+    let rank_deficient = !ranks.deficient.is_empty();
+    let mut candidates = default_candidates(&base, &a.schemes);
+    if rank_deficient && (a.schemes.is_empty() || a.schemes.iter().any(|n| n == "airm-observed")) {
+        // Regularise-then-average: the masked mean over a grid of regularisers.
+        candidates.extend(regularized_candidates(&base));
+    }
     if candidates.is_empty() {
         return Err(LacunaError::InvalidOption(format!(
             "--schemes {}: none of these is a scheme that accepts missing channels (see `lacuna schemes`)",
@@ -255,6 +274,12 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         }
     }
     let sel_opts = SelectOptions {
+        target,
+        criterion: if target == Target::Population || rank_deficient {
+            FitCriterion::Likelihood
+        } else {
+            FitCriterion::AffineDistance
+        },
         repeats: a.repeats,
         folds: a.folds,
         seed: a.seed,
@@ -273,10 +298,18 @@ pub fn run(a: CompareArgs) -> Result<i32> {
             };
             (bar, opts)
         };
+        // Rank-deficient trials have no complete-data Riemannian reference
+        // and infinite distances to any SPD mean: only the held-out
+        // likelihood is defined there.
         let t = Instant::now();
-        let (bar, o) = with_bar("simulated dropout (repeats)", a.repeats);
-        let dropout = simulated_dropout(&set, &candidates, &o)?;
-        bar.finish();
+        let dropout = if rank_deficient {
+            None
+        } else {
+            let (bar, o) = with_bar("simulated dropout (repeats)", a.repeats);
+            let d = simulated_dropout(&set, &candidates, &o)?;
+            bar.finish();
+            Some(d)
+        };
         timings.push(("simulated_dropout", t.elapsed().as_secs_f64()));
         let t = Instant::now();
         let (bar, o) = with_bar("held-out fit (folds)", a.folds);
@@ -284,12 +317,17 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         bar.finish();
         timings.push(("held_out_fit", t.elapsed().as_secs_f64()));
         let t = Instant::now();
-        let (bar, o) = with_bar("decoding (folds)", a.folds);
-        let dec = decoding(&set, &candidates, &o)?;
-        bar.finish();
+        let dec = if rank_deficient {
+            None
+        } else {
+            let (bar, o) = with_bar("decoding (folds)", a.folds);
+            let d = decoding(&set, &candidates, &o)?;
+            bar.finish();
+            d
+        };
         timings.push(("decoding", t.elapsed().as_secs_f64()));
-        let rec = recommend(&dropout, Some(&fit), dec.as_ref());
-        (Some(dropout), Some(fit), dec, Some(rec))
+        let rec = recommend(dropout.as_ref(), Some(&fit), dec.as_ref(), target, p);
+        (dropout, Some(fit), dec, Some(rec))
     };
     // Contributions to the masked mean.
     let masked = candidates
@@ -485,13 +523,16 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         "stage_seconds": timings.iter().map(|(k, v)| (k.to_string(), json!(v))).collect::<serde_json::Map<_, _>>(),
         "schemes": rows,
         "distances": {"schemes": labels, "matrix": distances},
+        "target": target.name(),
+        "ranks": ranks,
         "simulated_dropout": dropout.as_ref().map(|d| json!({
             "channels": d.channels, "left_out": d.left_out, "complete_trials": d.complete_trials,
             "trials_per_repeat": d.trials_per_repeat, "repeats": d.repeats,
             "scores": d.scores.iter().map(spread_json).collect::<Vec<_>>(),
         })),
         "held_out_fit": fit.as_ref().map(|f| json!({
-            "folds": f.folds, "scores": f.scores.iter().map(spread_json).collect::<Vec<_>>(),
+            "folds": f.folds, "criterion": f.criterion, "scores": f.scores.iter().map(spread_json).collect::<Vec<_>>(),
+            "other_criterion": f.other_criterion, "other_scores": f.other_scores.iter().map(spread_json).collect::<Vec<_>>(),
         })),
         "decoding": dec.as_ref().map(|d| json!({
             "folds": d.folds, "classes": d.classes, "chance": d.chance,

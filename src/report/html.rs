@@ -520,14 +520,22 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     let verdict = match (best, rec["clear"].as_bool()) {
         (Some(b), Some(true)) => format!("Recommended: {b}"),
         (Some(b), _) => format!(
-            "No clear winner — best on simulated dropout: {b} (tied: {})",
+            "No clear winner — best on {}: {b} (tied: {})",
+            match rec["primary"].as_str() {
+                Some("held-out-fit") => "held-out fit",
+                _ => "simulated dropout",
+            },
             strings(&rec["tied"]).join(", ")
         ),
         _ => "No recommendation (validation not run or no scheme completed it)".into(),
     };
     sec.push_str(&format!(
-        "<p class=\"verdict\">{}</p><ul class=\"reasons\">",
-        escape(&verdict)
+        "<p class=\"verdict\">{}</p><p class=\"note\">Target: {}.</p><ul class=\"reasons\">",
+        escape(&verdict),
+        match compare["target"].as_str() {
+            Some("population") => "the population covariance",
+            _ => "the Riemannian centre of the trials",
+        }
     ));
     for r in strings(&rec["reasons"]) {
         sec.push_str(&format!("<li>{}</li>", escape(&r)));
@@ -555,6 +563,26 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
         ));
     }
     body.push_str(&section("Which scheme to trust", &sec));
+
+    // Ranks of the trials as given.
+    let ranks = &compare["ranks"];
+    if let Some(list) = ranks["deficient"].as_array()
+        && !list.is_empty()
+    {
+        let mut t = String::from(
+            "<p class=\"note\">A block's rank counts its eigenvalues above k·ε·λ<sub>max</sub> (k channels observed). Riemannian schemes need full rank; the others, and the masked mean after a regulariser, take these windows.</p><table><tr><th>likely cause</th><th>trials</th></tr>",
+        );
+        if let Some(by) = ranks["by_cause"].as_object() {
+            for (cause, n) in by {
+                t.push_str(&format!("<tr><td>{}</td><td>{n}</td></tr>", escape(cause)));
+            }
+        }
+        t.push_str(&format!(
+            "<tr><td>full rank</td><td>{}</td></tr></table>",
+            ranks["full_rank"]
+        ));
+        body.push_str(&section("Rank-deficient trials", &t));
+    }
 
     // Dropout and coverage.
     let mut sec = String::new();

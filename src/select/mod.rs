@@ -98,6 +98,40 @@ pub fn default_candidates(base: &SchemeOptions, only: &[String]) -> Vec<Candidat
     out
 }
 
+/// Loading strengths and shrinkage intensities of the regularise-then-average
+/// grid (relative to each block's mean variance).
+pub const REGULARIZE_LOADING: [f64; 3] = [1e-3, 1e-2, 1e-1];
+pub const REGULARIZE_SHRINKAGE: [f64; 3] = [0.02, 0.1, 0.3];
+
+/// The masked mean after each regulariser of the grid (plus OAS when the
+/// samples per window are known): the candidates for rank-deficient data.
+pub fn regularized_candidates(base: &SchemeOptions) -> Vec<Candidate> {
+    use crate::schemes::regularize::Regularizer;
+    let mut grid: Vec<Regularizer> = REGULARIZE_LOADING
+        .iter()
+        .map(|&lambda| Regularizer::Loading { lambda })
+        .chain(
+            REGULARIZE_SHRINKAGE
+                .iter()
+                .map(|&alpha| Regularizer::Shrinkage { alpha }),
+        )
+        .collect();
+    if let Some(samples) = base.samples.filter(|&t| t >= 2) {
+        grid.push(Regularizer::Oas { samples });
+    }
+    grid.into_iter()
+        .map(|r| Candidate {
+            label: format!("airm-observed+{}", r.label()),
+            scheme: Box::new(crate::schemes::AirmObserved),
+            options: SchemeOptions {
+                regularize: Some(r),
+                observer: None,
+                ..base.clone()
+            },
+        })
+        .collect()
+}
+
 /// Median and interquartile range of a sample.
 #[derive(Debug, Clone, Copy, Serialize)]
 pub struct Spread {
@@ -108,6 +142,14 @@ pub struct Spread {
 }
 
 impl Spread {
+    /// A spread of no values (NaN everywhere), for display fallbacks.
+    pub const EMPTY: Spread = Spread {
+        median: f64::NAN,
+        q1: f64::NAN,
+        q3: f64::NAN,
+        n: 0,
+    };
+
     pub fn of(values: &[f64]) -> Option<Spread> {
         let mut v: Vec<f64> = values.iter().copied().filter(|x| x.is_finite()).collect();
         if v.is_empty() {
@@ -147,8 +189,49 @@ pub struct DropoutValidation {
     /// Trials per repeat (a random subset when there are many).
     pub trials_per_repeat: usize,
     pub repeats: usize,
+    /// The reference's target (centre: Karcher mean; population: arithmetic mean).
+    pub target: Target,
     /// Lower is better: distance to the complete-data reference.
     pub scores: Vec<Score>,
+}
+
+/// What the mean is meant to estimate; it decides the protocols' references.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Target {
+    /// The Riemannian centre of the trials (minimum-distance decoding,
+    /// re-centring): a common scale factor is harmless. References: the
+    /// complete-data Karcher mean; held-out fit by squared affine-invariant
+    /// distance.
+    Centre,
+    /// The population covariance (spatial filters, whitening, source models,
+    /// power compared across window lengths). References: the arithmetic mean
+    /// of complete trials (unbiased for the population covariance); held-out
+    /// fit by Gaussian likelihood.
+    Population,
+}
+
+impl Target {
+    /// Name used on the command line and in reports.
+    pub fn name(self) -> &'static str {
+        match self {
+            Target::Centre => "centre",
+            Target::Population => "population",
+        }
+    }
+}
+
+/// How the held-out protocol scores a held-out trial's observed block `C`
+/// against the training mean's sub-block `M` (both `k×k`); lower is better.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum FitCriterion {
+    /// `δ²(M, C)`, the squared affine-invariant distance (needs `C` full rank).
+    AffineDistance,
+    /// Negative Gaussian log-likelihood per channel,
+    /// `(1/k) [log det M + tr(M⁻¹ C)]` up to a constant: defined for
+    /// rank-deficient `C`, minimised in expectation by `M = E[C]`.
+    Likelihood,
 }
 
 /// Called after each repeat or fold of a protocol (progress display).
@@ -170,6 +253,10 @@ pub struct SelectOptions {
     pub max_train: usize,
     /// Called after every repeat or fold.
     pub on_step: Option<StepObserver>,
+    /// What the mean should estimate (decides the references).
+    pub target: Target,
+    /// How the held-out protocol scores a trial.
+    pub criterion: FitCriterion,
 }
 
 impl std::fmt::Debug for SelectOptions {
@@ -181,6 +268,8 @@ impl std::fmt::Debug for SelectOptions {
             .field("min_complete", &self.min_complete)
             .field("max_trials", &self.max_trials)
             .field("max_train", &self.max_train)
+            .field("target", &self.target)
+            .field("criterion", &self.criterion)
             .finish()
     }
 }
@@ -203,6 +292,8 @@ impl Default for SelectOptions {
             max_trials: 200,
             max_train: 600,
             on_step: None,
+            target: Target::Centre,
+            criterion: FitCriterion::AffineDistance,
         }
     }
 }
@@ -290,9 +381,22 @@ pub fn simulated_dropout(
     let names: Vec<String> = s.iter().map(|&c| set.channels()[c].clone()).collect();
     let drop: Vec<usize> = (0..set.n_channels()).filter(|c| !s.contains(c)).collect();
     let base = set.select_trials(&complete)?.without_channels(&drop)?;
-    let reference = crate::schemes::Karcher
-        .average(&base, &SchemeOptions::default())?
-        .mean;
+    let reference = match opts.target {
+        Target::Centre => crate::schemes::Karcher.average(&base, &SchemeOptions::default())?,
+        Target::Population => {
+            crate::schemes::Arithmetic.average(&base, &SchemeOptions::default())?
+        }
+    }
+    .mean;
+    if crate::spd::kernels::cholesky(&reference).is_none() {
+        return Err(crate::error::LacunaError::RankDeficient {
+            scheme: "the simulated-dropout reference".into(),
+            trial: base.rank_deficient().first().copied().unwrap_or(0),
+            rank: 0,
+            size: s.len(),
+            count: base.rank_deficient().len(),
+        });
+    }
     // The data's own patterns, restricted to the reference channels.
     let patterns: Vec<Vec<usize>> = (0..set.len())
         .map(|i| {
@@ -359,6 +463,7 @@ pub fn simulated_dropout(
         complete_trials: complete.len(),
         trials_per_repeat: per_repeat,
         repeats: opts.repeats,
+        target: opts.target,
         scores,
     })
 }
@@ -428,7 +533,55 @@ fn folds(n: usize, k: usize, seed: u64) -> Vec<Vec<usize>> {
 #[derive(Debug, Clone, Serialize)]
 pub struct HeldOutFit {
     pub folds: usize,
+    /// How each held-out trial was scored.
+    pub criterion: FitCriterion,
+    /// The other criterion, scored on the same folds (to say when the two
+    /// targets would rank differently). Non-finite values (distances to a
+    /// rank-deficient block) are left out.
+    pub other_criterion: FitCriterion,
+    pub other_scores: Vec<Score>,
     pub scores: Vec<Score>,
+}
+
+impl FitCriterion {
+    /// The criterion of the other target.
+    pub fn other(self) -> Self {
+        match self {
+            FitCriterion::AffineDistance => FitCriterion::Likelihood,
+            FitCriterion::Likelihood => FitCriterion::AffineDistance,
+        }
+    }
+
+    /// In words, for reasons and reports.
+    pub fn describe(self) -> &'static str {
+        match self {
+            FitCriterion::AffineDistance => "median squared affine-invariant distance",
+            FitCriterion::Likelihood => {
+                "median negative Gaussian log-likelihood per channel, (log det M + tr M⁻¹C)/k"
+            }
+        }
+    }
+}
+
+/// One held-out trial's score under `criterion` (lower is better): mean
+/// sub-block `m`, trial block `c`.
+pub fn fit_score(criterion: FitCriterion, m: &Mat, c: &Mat) -> f64 {
+    match criterion {
+        FitCriterion::AffineDistance => {
+            let d = airm_distance(m, c);
+            d * d
+        }
+        FitCriterion::Likelihood => {
+            let k = m.nrows() as f64;
+            let Some(l) = crate::spd::kernels::cholesky(m) else {
+                return f64::INFINITY;
+            };
+            let log_det: f64 = 2.0 * (0..m.nrows()).map(|a| l[(a, a)].ln()).sum::<f64>();
+            // tr(M⁻¹ C) = ‖L⁻¹ C L⁻ᵀ‖ trace = trace of the whitened block.
+            let trace = crate::spd::kernels::whiten(&l, c).trace();
+            (log_det + trace) / k
+        }
+    }
 }
 
 /// K-fold held-out fit (see the module documentation).
@@ -438,7 +591,7 @@ pub fn held_out_fit(
     opts: &SelectOptions,
 ) -> Result<HeldOutFit> {
     let fs = folds(set.len(), opts.folds, opts.seed ^ 0xF01D);
-    type FoldOutcome = std::result::Result<(Option<usize>, Vec<f64>), String>;
+    type FoldOutcome = std::result::Result<(Option<usize>, Vec<(f64, f64)>), String>;
     let per_fold: Vec<Vec<FoldOutcome>> = fs
         .par_iter()
         .enumerate()
@@ -461,47 +614,56 @@ pub fn held_out_fit(
                             .filter_map(|&i| {
                                 let (a, b) =
                                     matching_blocks(&m.mean, est.as_deref(), &set.trials()[i])?;
-                                let d = airm_distance(&a, &b);
-                                Some(d * d)
+                                Some((
+                                    fit_score(opts.criterion, &a, &b),
+                                    fit_score(opts.criterion.other(), &a, &b),
+                                ))
                             })
-                            .collect::<Vec<f64>>(),
+                            .collect::<Vec<(f64, f64)>>(),
                     ))
                 })
                 .collect()
         })
         .inspect(|_| opts.step())
         .collect();
-    let scores = candidates
-        .iter()
-        .enumerate()
-        .map(|(k, c)| {
-            let mut values = Vec::new();
-            let mut failures = 0;
-            let mut reason = None;
-            let mut partial = None;
-            for f in &per_fold {
-                match &f[k] {
-                    Ok((est, v)) => {
-                        values.extend_from_slice(v);
-                        partial = partial.or(*est);
-                    }
-                    Err(e) => {
-                        failures += 1;
-                        reason.get_or_insert(e.clone());
+    let score_with = |pick: fn(&(f64, f64)) -> f64| -> Vec<Score> {
+        candidates
+            .iter()
+            .enumerate()
+            .map(|(k, c)| {
+                let mut values = Vec::new();
+                let mut failures = 0;
+                let mut reason = None;
+                let mut partial = None;
+                for f in &per_fold {
+                    match &f[k] {
+                        Ok((est, v)) => {
+                            values.extend(v.iter().map(pick).filter(|x| x.is_finite()));
+                            partial = partial.or(*est);
+                        }
+                        Err(e) => {
+                            failures += 1;
+                            reason.get_or_insert(e.clone());
+                        }
                     }
                 }
-            }
-            Score {
-                candidate: c.label.clone(),
-                spread: Spread::of(&values),
-                partial,
-                failures,
-                failure_reason: reason,
-            }
-        })
-        .collect();
+                Score {
+                    candidate: c.label.clone(),
+                    spread: Spread::of(&values),
+                    partial,
+                    failures,
+                    failure_reason: reason,
+                }
+            })
+            .collect()
+    };
+    let scores = score_with(|v| v.0);
+    let other_scores = score_with(|v| v.1);
     Ok(HeldOutFit {
         folds: fs.len(),
+        criterion: opts.criterion,
+        other_criterion: opts.criterion.other(),
+        other_scores,
         scores,
     })
 }
@@ -602,8 +764,12 @@ pub fn decoding(
 /// The recommendation and its reasons, in plain words.
 #[derive(Debug, Clone, Serialize)]
 pub struct Recommendation {
-    /// The recommended candidate (the best on simulated dropout), if any ran.
+    /// The recommended candidate (the best on the primary protocol), if any ran.
     pub scheme: Option<String>,
+    /// What the recommendation aims at.
+    pub target: Target,
+    /// The protocol that ranked: "simulated-dropout" or "held-out-fit".
+    pub primary: &'static str,
     /// False when other candidates' interquartile ranges overlap its own.
     pub clear: bool,
     /// Candidates statistically tied with it (IQR overlap), itself first.
@@ -617,10 +783,7 @@ fn ranked(scores: &[Score], lower_is_better: bool) -> Vec<&Score> {
         .filter(|s| s.spread.is_some() && s.partial.is_none() && s.failures == 0)
         .collect();
     v.sort_by(|a, b| {
-        let (x, y) = (
-            a.spread.expect("ranked").median,
-            b.spread.expect("ranked").median,
-        );
+        let (x, y) = (median_of(a), median_of(b));
         if lower_is_better {
             x.total_cmp(&y)
         } else {
@@ -630,45 +793,152 @@ fn ranked(scores: &[Score], lower_is_better: bool) -> Vec<&Score> {
     v
 }
 
-/// Combines the protocols into a recommendation.
-pub fn recommend(
-    dropout: &DropoutValidation,
-    fit: Option<&HeldOutFit>,
-    dec: Option<&Decoding>,
-) -> Recommendation {
-    let order = ranked(&dropout.scores, true);
-    let mut reasons = Vec::new();
-    let Some(best) = order.first() else {
-        return Recommendation {
-            scheme: None,
-            clear: false,
-            tied: vec![],
-            reasons: vec!["no candidate completed every simulated-dropout repeat".into()],
-        };
-    };
-    let b = best.spread.expect("ranked");
-    // Protocol runs stop at a relative gradient norm of 1e-5, so distances
+/// The median of a ranked score (ranked scores always have a spread).
+fn median_of(s: &Score) -> f64 {
+    s.spread.map_or(f64::NAN, |x| x.median)
+}
+
+/// Candidates whose interquartile range reaches the best one's (ties).
+fn ties(order: &[&Score]) -> Vec<String> {
+    // Protocol runs stop at a relative gradient norm of 1e-5, so scores
     // closer than TIE are solver precision, not evidence.
     const TIE: f64 = 1e-4;
-    let tied: Vec<String> = order
+    let Some(b) = order.first().and_then(|s| s.spread) else {
+        return Vec::new();
+    };
+    order
         .iter()
-        .filter(|s| s.spread.expect("ranked").q1 <= b.q3 + TIE)
+        .filter(|s| s.spread.is_some_and(|x| x.q1 <= b.q3 + TIE))
         .map(|s| s.candidate.clone())
+        .collect()
+}
+
+fn failures_and_partials(scores: &[Score], channels: usize, reasons: &mut Vec<String>) {
+    let partial: Vec<String> = scores
+        .iter()
+        .filter(|s| s.partial.is_some())
+        .map(|s| {
+            format!(
+                "{} ({} of {channels} channels)",
+                s.candidate,
+                s.partial.unwrap_or(0)
+            )
+        })
         .collect();
+    if !partial.is_empty() {
+        reasons.push(format!(
+            "Not ranked because they estimate only some channels: {}.",
+            partial.join(", ")
+        ));
+    }
+    let needs_rank = |s: &&Score| {
+        s.failure_reason
+            .as_deref()
+            .is_some_and(|r| r.contains("needs full-rank"))
+    };
+    let full_rank_only: Vec<&str> = scores
+        .iter()
+        .filter(|s| s.failures > 0)
+        .filter(needs_rank)
+        .map(|s| s.candidate.as_str())
+        .collect();
+    if !full_rank_only.is_empty() {
+        reasons.push(format!(
+            "Not run because they need full-rank trials: {} (the airm-observed+… candidates are the masked mean after a regulariser).",
+            full_rank_only.join(", ")
+        ));
+    }
+    let failed: Vec<String> = scores
+        .iter()
+        .filter(|s| s.failures > 0 && !needs_rank(s))
+        .map(|s| {
+            format!(
+                "{} ({})",
+                s.candidate,
+                s.failure_reason.clone().unwrap_or_default()
+            )
+        })
+        .collect();
+    if !failed.is_empty() {
+        reasons.push(format!("Could not run: {}.", failed.join("; ")));
+    }
+}
+
+/// Combines the protocols into a recommendation for `target`. The primary
+/// protocol is simulated dropout when it ran, otherwise the held-out fit
+/// (rank-deficient data, where no complete-data reference exists).
+pub fn recommend(
+    dropout: Option<&DropoutValidation>,
+    fit: Option<&HeldOutFit>,
+    dec: Option<&Decoding>,
+    target: Target,
+    channels: usize,
+) -> Recommendation {
+    let mut reasons = Vec::new();
+    let (primary, order, all) = match (dropout, fit) {
+        (Some(d), _) if !ranked(&d.scores, true).is_empty() => {
+            ("simulated-dropout", ranked(&d.scores, true), &d.scores)
+        }
+        (_, Some(f)) if !ranked(&f.scores, true).is_empty() => {
+            ("held-out-fit", ranked(&f.scores, true), &f.scores)
+        }
+        _ => {
+            return Recommendation {
+                scheme: None,
+                target,
+                primary: "none",
+                clear: false,
+                tied: vec![],
+                reasons: vec!["no candidate completed every repeat or fold of a protocol".into()],
+            };
+        }
+    };
+    let best = order[0];
+    let b = best.spread.unwrap_or(Spread::EMPTY);
+    let tied = ties(&order);
     let clear = tied.len() == 1;
-    reasons.push(format!(
-        "Simulated dropout ({} repeats, {} of {} complete trials each, on {} channels): {} came closest to the complete-data Karcher mean (median affine-invariant distance {:.4}, interquartile range {:.4}–{:.4}).",
-        dropout.repeats,
-        dropout.trials_per_repeat,
-        dropout.complete_trials,
-        dropout.channels.len(),
-        best.candidate,
-        b.median,
-        b.q1,
-        b.q3
-    ));
+    reasons.push(match target {
+        Target::Centre => "Target: the Riemannian centre of the trials (minimum-distance decoding, re-centring; a common scale factor does not matter). Use --target population for spatial filters, whitening or power compared across studies.".to_string(),
+        Target::Population => "Target: the population covariance (spatial filters, whitening, source models, power compared across window lengths). References are unbiased for it: the arithmetic mean of complete trials, and the Gaussian likelihood of held-out trials.".to_string(),
+    });
+    match (primary, dropout) {
+        ("simulated-dropout", Some(d)) => reasons.push(format!(
+            "Simulated dropout ({} repeats, {} of {} complete trials each, on {} channels): {} came closest to the complete-data {} (median affine-invariant distance {:.4}, interquartile range {:.4}–{:.4}).",
+            d.repeats,
+            d.trials_per_repeat,
+            d.complete_trials,
+            d.channels.len(),
+            best.candidate,
+            match d.target {
+                Target::Centre => "Karcher mean",
+                Target::Population => "arithmetic mean (pooled sample covariance)",
+            },
+            b.median,
+            b.q1,
+            b.q3
+        )),
+        _ => {
+            let f = fit.map_or(0, |f| f.folds);
+            reasons.push(format!(
+                "Held-out fit ({f}-fold; {}): {} fitted the held-out trials best (median {:.4}, interquartile range {:.4}–{:.4}).",
+                fit.map_or("", |f| f.criterion.describe()),
+                best.candidate,
+                b.median,
+                b.q1,
+                b.q3
+            ));
+            if best.candidate == "gaussian-em"
+                && fit.is_some_and(|f| f.criterion == FitCriterion::Likelihood)
+            {
+                reasons.push("The likelihood criterion is the one gaussian-em maximises on the training trials, so it favours that scheme slightly; a regularised masked mean within its interquartile range is as good a fit.".into());
+            }
+            if dropout.is_none() {
+                reasons.push("Simulated dropout and decoding need full-rank trials (their references and distances are undefined for singular blocks), so the held-out likelihood ranks alone. A regulariser adds bias (each block is pulled towards a multiple of the identity) and removes variance and the singularity; the held-out likelihood weighs the two on trials the mean never saw.".into());
+            }
+        }
+    }
     if let Some(second) = order.get(1) {
-        let s = second.spread.expect("ranked");
+        let s = second.spread.unwrap_or(Spread::EMPTY);
         reasons.push(if clear {
             format!(
                 "The runner-up, {}, had median {:.4} ({:.4}–{:.4}); the ranges do not overlap.",
@@ -685,65 +955,66 @@ pub fn recommend(
             )
         });
     }
-    if !dropout.left_out.is_empty() {
+    if let Some(d) = dropout
+        && !d.left_out.is_empty()
+    {
         reasons.push(format!(
-            "Left out of this validation for lack of trials observing them together with the rest: {}. The ranking says nothing about them.",
-            dropout.left_out.join(", ")
+            "Left out of the simulated dropout for lack of trials observing them together with the rest: {}. That ranking says nothing about them.",
+            d.left_out.join(", ")
         ));
     }
-    let partial: Vec<String> = dropout
-        .scores
-        .iter()
-        .filter(|s| s.partial.is_some())
-        .map(|s| {
-            format!(
-                "{} ({} of {} channels)",
-                s.candidate,
-                s.partial.unwrap_or(0),
-                dropout.channels.len()
-            )
-        })
-        .collect();
-    if !partial.is_empty() {
-        reasons.push(format!(
-            "Not ranked because they estimate only some channels: {}.",
-            partial.join(", ")
-        ));
+    failures_and_partials(all, channels, &mut reasons);
+    if primary == "simulated-dropout" && target == Target::Centre {
+        reasons.push("The reference is a Riemannian (Karcher) mean, which favours schemes that average in the same geometry; the held-out fit and decoding checks below do not share that bias.".into());
     }
-    let failed: Vec<String> = dropout
-        .scores
-        .iter()
-        .filter(|s| s.failures > 0)
-        .map(|s| {
-            format!(
-                "{} ({})",
-                s.candidate,
-                s.failure_reason.clone().unwrap_or_default()
-            )
-        })
-        .collect();
-    if !failed.is_empty() {
-        reasons.push(format!("Could not run: {}.", failed.join("; ")));
-    }
-    reasons.push("The reference is a Riemannian (Karcher) mean, which favours schemes that average in the same geometry; the held-out fit and decoding checks below do not share that bias.".into());
-    if let Some(fit) = fit {
+    if let Some(fit) = fit
+        && primary == "simulated-dropout"
+    {
         let o = ranked(&fit.scores, true);
         if let Some(f) = o.first() {
             let pos = o.iter().position(|s| s.candidate == best.candidate);
             reasons.push(format!(
-                "Held-out fit ({}-fold): best {} (median squared distance {:.4}); {} ranks {}.",
+                "Held-out fit ({}-fold, {}): best {} ({:.4}); {} ranks {}.",
                 fit.folds,
+                fit.criterion.describe(),
                 f.candidate,
-                f.spread.expect("ranked").median,
+                median_of(f),
                 best.candidate,
                 pos.map_or("—".into(), |p| format!("{} of {}", p + 1, o.len()))
+            ));
+        }
+    }
+    let criterion_matches_target = fit.is_some_and(|f| {
+        matches!(
+            (target, f.criterion),
+            (Target::Centre, FitCriterion::AffineDistance)
+                | (Target::Population, FitCriterion::Likelihood)
+        )
+    });
+    if let Some(fit) = fit.filter(|_| criterion_matches_target && dropout.is_some()) {
+        // Would the other target's held-out criterion pick another scheme?
+        let mine = ranked(&fit.scores, true);
+        let other = ranked(&fit.other_scores, true);
+        if let (Some(a), Some(o)) = (mine.first(), other.first())
+            && a.candidate != o.candidate
+        {
+            let other_target = match target {
+                Target::Centre => "population",
+                Target::Population => "centre",
+            };
+            reasons.push(format!(
+                "The two targets rank differently: on the same held-out folds, the {} ({}) puts {} first, where this target's criterion puts {} first. If you need the {other_target}, run with --target {other_target}.",
+                fit.other_criterion.describe(),
+                other_target,
+                o.candidate,
+                a.candidate
             ));
         }
     }
     if let Some(dec) = dec {
         let o = ranked(&dec.scores, false);
         if let Some(top) = o.first() {
-            let t = top.spread.expect("ranked");
+            let t = top.spread.unwrap_or(Spread::EMPTY);
             let mine = dec
                 .scores
                 .iter()
@@ -770,6 +1041,8 @@ pub fn recommend(
     }
     Recommendation {
         scheme: Some(best.candidate.clone()),
+        target,
+        primary,
         clear,
         tied,
         reasons,
