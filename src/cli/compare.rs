@@ -40,6 +40,10 @@ pub struct CompareArgs {
     /// always states it.
     #[arg(long, default_value = "centre", value_parser = ["centre", "population"])]
     target: String,
+    /// Degrees of freedom of the covariances for the scale-bias-corrected
+    /// masked mean (target population), when not --samples minus one.
+    #[arg(long, value_name = "N")]
+    effective_samples: Option<f64>,
     /// Covariance stack: NPY float64 (N, p, p), NaN where unobserved allowed.
     #[arg(long, value_name = "STACK.npy")]
     covs: PathBuf,
@@ -161,7 +165,15 @@ fn csv_cell(s: &str) -> String {
     }
 }
 
-pub fn run(a: CompareArgs) -> Result<i32> {
+pub fn run(mut a: CompareArgs) -> Result<i32> {
+    // T from the extraction's epochs.json when not given.
+    if a.samples.is_none()
+        && let Some(e) = &a.epochs
+    {
+        a.samples = super::report::read_json(e)?["samples_per_epoch"]
+            .as_u64()
+            .map(|t| t as usize);
+    }
     if !(a.tol > 0.0) || a.folds < 2 {
         return Err(LacunaError::InvalidOption(
             "--tol must be positive and --folds at least 2".into(),
@@ -233,6 +245,23 @@ pub fn run(a: CompareArgs) -> Result<i32> {
     let ranks = lacuna::diagnose::rank_table(&set, a.samples);
     let rank_deficient = !ranks.deficient.is_empty();
     let mut candidates = default_candidates(&base, &a.schemes);
+    // The population target also weighs the masked mean with its
+    // short-window scale bias removed, when the degrees of freedom are known.
+    if target == Target::Population
+        && !rank_deficient
+        && (a.samples.is_some() || a.effective_samples.is_some())
+        && (a.schemes.is_empty() || a.schemes.iter().any(|n| n == "airm-observed"))
+    {
+        let n = super::degrees_of_freedom(a.samples, a.effective_samples)?;
+        candidates.push(lacuna::select::Candidate {
+            label: "airm-observed+scale-corrected".into(),
+            scheme: Box::new(lacuna::schemes::AirmObserved),
+            options: SchemeOptions {
+                scale_correction: Some(n),
+                ..base.clone()
+            },
+        });
+    }
     if rank_deficient && (a.schemes.is_empty() || a.schemes.iter().any(|n| n == "airm-observed")) {
         // Regularise-then-average: the masked mean over a grid of regularisers.
         candidates.extend(regularized_candidates(&base));
@@ -608,10 +637,12 @@ pub fn run(a: CompareArgs) -> Result<i32> {
         }
         if let Some(r) = &rec {
             println!();
+            println!("target: {}", r.target.name());
             match &r.scheme {
                 Some(s) if r.clear => println!("recommended: {s}"),
                 Some(s) => println!(
-                    "no clear winner; best on simulated dropout: {s} (tied: {})",
+                    "no clear winner; best on {}: {s} (tied: {})",
+                    r.primary.replace('-', " "),
                     r.tied.join(", ")
                 ),
                 None => println!("no recommendation"),

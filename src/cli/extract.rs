@@ -413,6 +413,11 @@ fn write_outputs(
             })
         })
         .collect();
+    let lengths: Vec<usize> = out.epochs.iter().map(|e| e.samples).collect();
+    let samples_per_epoch = lengths
+        .first()
+        .filter(|&&f| lengths.iter().all(|&x| x == f))
+        .copied();
     let meta = json!({
         "lacuna_epochs_version": "1",
         "lacuna_version": env!("CARGO_PKG_VERSION"),
@@ -423,6 +428,9 @@ fn write_outputs(
         "band_hz": opts.band.map(|(l, h)| vec![l, h]),
         "filter": opts.band.map(|_| format!("Butterworth order {} band-pass, forward-backward (zero phase)", opts.order)),
         "estimator": opts.estimator.name(),
+        // Every window has the same length when all of them do; later
+        // commands (compare --epochs) take T and the degrees of freedom here.
+        "samples_per_epoch": samples_per_epoch,
         "detection": opts.detect,
         "user_bad_channels": opts.bad_channels,
         "user_mask": a.mask.as_ref().map(|m| m.display().to_string()),

@@ -62,6 +62,19 @@ pub struct MeanArgs {
     /// trial's OAS intensity instead of the fixed --shrinkage.
     #[arg(long, value_name = "T")]
     samples: Option<usize>,
+    /// Remove the short-window scale bias of the Riemannian mean (airm-observed,
+    /// airm): each observed block is divided by e^c(k, n), c the expected
+    /// log-determinant bias of a sample covariance with n degrees of freedom,
+    /// so the mean estimates the population covariance rather than a shrunk
+    /// copy of it. n is --effective-samples, else --samples minus one
+    /// (covariances centred on each window's mean). See docs/masked-mean.md.
+    #[arg(long)]
+    correct_scale: bool,
+    /// Degrees of freedom for --correct-scale when they differ from samples
+    /// minus one: zero-mean windows normalised by 1/T have T; autocorrelated
+    /// samples have fewer (an estimate you supply, stated as such).
+    #[arg(long, value_name = "N")]
+    effective_samples: Option<f64>,
     /// Regularise every observed block before averaging, for rank-deficient
     /// windows (average reference, removed components, short windows):
     /// `shrinkage:α` gives (1−α)C + α(tr C/k)I, `loading:λ` gives
@@ -163,6 +176,11 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             None => None,
         },
         warm_start: None,
+        scale_correction: if a.correct_scale {
+            Some(super::degrees_of_freedom(a.samples, a.effective_samples)?)
+        } else {
+            None
+        },
         regularize: match &a.regularize {
             Some(spec) => Some(
                 lacuna::schemes::regularize::Regularizer::parse(spec, a.samples)

@@ -96,3 +96,21 @@ pub fn run() -> i32 {
         }
     }
 }
+
+/// Degrees of freedom for the scale-bias correction: `--effective-samples`
+/// when given, else `--samples` minus one (windows centred on their mean).
+pub fn degrees_of_freedom(samples: Option<usize>, effective: Option<f64>) -> lacuna::Result<f64> {
+    match (effective, samples) {
+        (Some(n), _) if n.is_finite() && n > 0.0 && n <= 1e9 => Ok(n),
+        (Some(n), _) => Err(lacuna::LacunaError::InvalidOption(format!(
+            "--effective-samples must be a positive number up to 1e9, got {n}"
+        ))),
+        (None, Some(t)) if t >= 2 => Ok((t - 1) as f64),
+        (None, Some(t)) => Err(lacuna::LacunaError::InvalidOption(format!(
+            "--samples must be at least 2 for the scale-bias correction, got {t}"
+        ))),
+        (None, None) => Err(lacuna::LacunaError::InvalidOption(
+            "--correct-scale needs the samples per window: add --samples T (or --effective-samples N)".into(),
+        )),
+    }
+}

@@ -77,6 +77,8 @@ pub struct EpochInfo {
     /// Seconds from the start of the session's recording.
     pub onset: f64,
     pub duration: f64,
+    /// Samples in the window.
+    pub samples: usize,
     pub label: Option<String>,
     /// Shrinkage intensity of the covariance estimator (0 for sample).
     pub shrinkage: f64,
@@ -668,6 +670,7 @@ fn decide_session(
             session: input.session.clone(),
             onset: spec.onset,
             duration: spec.len as f64 / fs,
+            samples: spec.len,
             label: spec.label.clone(),
             shrinkage,
             rank,

@@ -367,6 +367,9 @@ impl AveragingScheme for AirmObserved {
     fn name(&self) -> &'static str {
         "airm-observed"
     }
+    fn corrects_scale(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "full-size affine-invariant mean fitted to each trial's observed sub-block only"
     }

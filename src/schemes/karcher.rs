@@ -80,6 +80,9 @@ impl AveragingScheme for Karcher {
     fn name(&self) -> &'static str {
         "airm"
     }
+    fn corrects_scale(&self) -> bool {
+        true
+    }
     fn summary(&self) -> &'static str {
         "affine-invariant Riemannian (Karcher) mean of complete trials"
     }

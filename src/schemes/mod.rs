@@ -70,6 +70,11 @@ pub struct SchemeOptions {
     pub warm_start: Option<Arc<Mat>>,
     /// Regularise every observed block before averaging (regularise-then-average).
     pub regularize: Option<regularize::Regularizer>,
+    /// Degrees of freedom `n` of the trial covariances: when set, schemes
+    /// that support it ([`AveragingScheme::corrects_scale`]) divide each
+    /// observed block by `e^{c(k_i, n)}` first, so that the Riemannian mean
+    /// estimates the population covariance (src/spd/wishart.rs).
+    pub scale_correction: Option<f64>,
 }
 
 impl Default for SchemeOptions {
@@ -87,6 +92,7 @@ impl Default for SchemeOptions {
             positions: None,
             warm_start: None,
             regularize: None,
+            scale_correction: None,
         }
     }
 }
@@ -105,6 +111,7 @@ impl std::fmt::Debug for SchemeOptions {
             .field("positions", &self.positions.as_ref().map(|p| p.len()))
             .field("warm_start", &self.warm_start.is_some())
             .field("regularize", &self.regularize)
+            .field("scale_correction", &self.scale_correction)
             .finish()
     }
 }
@@ -291,6 +298,11 @@ pub trait AveragingScheme: Sync + Send {
     fn accepts_rank_deficient(&self) -> bool {
         false
     }
+    /// Whether the scheme is a Riemannian (Karcher-type) mean whose
+    /// short-window scale bias `options.scale_correction` can remove.
+    fn corrects_scale(&self) -> bool {
+        false
+    }
     /// Computes the mean from a set that passed the shared checks of
     /// [`AveragingScheme::average`]. Call `average`, not this.
     fn compute(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult>;
@@ -310,6 +322,30 @@ pub trait AveragingScheme: Sync + Send {
                 &regularised
             }
             None => trials,
+        };
+        let corrected;
+        let set = match options.scale_correction {
+            Some(n) => {
+                if !self.corrects_scale() {
+                    return Err(crate::error::LacunaError::InvalidOption(format!(
+                        "the scale-bias correction applies to Riemannian means (airm-observed, airm), not to '{}'",
+                        self.name()
+                    )));
+                }
+                if options.regularize.is_some() {
+                    return Err(crate::error::LacunaError::InvalidOption(
+                        "the scale-bias correction assumes Wishart sample covariances; it cannot follow a regulariser".into(),
+                    ));
+                }
+                let (s, n_note) = scale_corrected(set, n)?;
+                corrected = s;
+                note = Some(match note {
+                    Some(prev) => format!("{prev}; {n_note}"),
+                    None => n_note,
+                });
+                &corrected
+            }
+            None => set,
         };
         if !self.accepts_rank_deficient() {
             let deficient = set.rank_deficient();
@@ -353,6 +389,50 @@ pub fn all_schemes() -> Vec<Box<dyn AveragingScheme>> {
 /// Looks a scheme up by name.
 pub fn scheme_by_name(name: &str) -> Option<Box<dyn AveragingScheme>> {
     all_schemes().into_iter().find(|s| s.name() == name)
+}
+
+/// Divides every observed block by `e^{c(k_i, n)}` (the expected scale
+/// bias of a Riemannian mean of sample covariances with `n` degrees of
+/// freedom); returns the set and a note with the factors used.
+pub fn scale_corrected(set: &TrialSet, n: f64) -> Result<(TrialSet, String)> {
+    use crate::spd::wishart::log_scale_bias;
+    let mut lo = f64::INFINITY;
+    let mut hi = f64::NEG_INFINITY;
+    let mut trials = Vec::with_capacity(set.len());
+    for (i, t) in set.trials().iter().enumerate() {
+        let k = t.observed.len();
+        let c = log_scale_bias(k, n).ok_or_else(|| {
+            crate::error::LacunaError::InvalidOption(format!(
+                "the scale-bias correction needs more degrees of freedom than channels minus one: trial {i} observes {k} channels, n = {n}"
+            ))
+        })?;
+        let f = (-c).exp();
+        lo = lo.min(f);
+        hi = hi.max(f);
+        trials.push(crate::trials::Trial {
+            observed: t.observed.clone(),
+            block: &t.block * f,
+        });
+    }
+    let mut out = TrialSet::new(
+        set.channels().to_vec(),
+        trials,
+        Some(set.weights().to_vec()),
+        "scale-corrected trials",
+    )?;
+    out.labels = set.labels.clone();
+    out.sessions = set.sessions.clone();
+    let range = if (hi - lo).abs() <= 1e-12 * hi {
+        format!("{lo:.4}")
+    } else {
+        format!("{lo:.4}–{hi:.4} (by block size)")
+    };
+    Ok((
+        out,
+        format!(
+            "scale-bias correction for n = {n} degrees of freedom: every observed block multiplied by e^-c(k, n) = {range}, so the mean estimates the population covariance (exact in expectation for Gaussian, independent samples)"
+        ),
+    ))
 }
 
 /// The scheme name closest to `name` by edit distance (for "did you mean"),

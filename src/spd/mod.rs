@@ -10,7 +10,8 @@
 //! - [`functions`]: matrix functions (sqrt, inverse sqrt, log, exp, powers);
 //! - [`distance`]: affine-invariant and log-Euclidean distances;
 //! - [`geodesic`]: exponential/logarithm maps and geodesic interpolation;
-//! - [`validate`]: the symmetry and definiteness checks used on input.
+//! - [`validate`]: the symmetry and definiteness checks used on input;
+//! - [`wishart`]: the short-window scale bias of Riemannian means.
 
 pub mod distance;
 pub mod functions;
@@ -18,6 +19,7 @@ pub mod geodesic;
 pub mod kernels;
 pub mod nearest;
 pub mod validate;
+pub mod wishart;
 
 pub use distance::{airm_distance, log_euclidean_distance};
 pub use functions::{expm_sym, invsqrtm_spd, logm_spd, powm_spd, sqrtm_spd};
