@@ -156,10 +156,9 @@ fn npy_epochs_with_lost_samples() {
 fn user_mask_and_bad_channels() {
     let d = Dir::new("user");
     let s1 = demo("session-1.edf");
-    let mut mask = (1..=24)
-        .map(|c| format!("c{c}"))
-        .collect::<Vec<_>>()
-        .join(",");
+    // Columns are matched by channel name (the recording's).
+    let names = std::fs::read_to_string(demo("truth-mask.csv")).unwrap();
+    let mut mask = names.lines().next().unwrap().to_string();
     mask.push('\n');
     for e in 0..30 {
         let row: Vec<&str> = (0..24)

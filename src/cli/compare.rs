@@ -19,7 +19,6 @@ use lacuna::spd::distance::airm_distance;
 use lacuna::spd::{Mat, condition_number, log_det};
 use lacuna::trials::TrialSet;
 use lacuna::trials::io::{encode_matrix, load_trial_set, read_labels, read_positions};
-use lacuna::trials::npy::write_atomic;
 use lacuna::{LacunaError, Result, SchemeOptions};
 use rayon::prelude::*;
 use serde_json::json;
@@ -166,6 +165,27 @@ fn csv_cell(s: &str) -> String {
 }
 
 pub fn run(mut a: CompareArgs) -> Result<i32> {
+    {
+        let mut inputs: Vec<(&str, &std::path::Path)> = vec![("--covs", &a.covs)];
+        for (o, p) in [
+            ("--mask", &a.mask),
+            ("--labels", &a.labels),
+            ("--positions", &a.positions),
+            ("--epochs", &a.epochs),
+        ] {
+            if let Some(p) = p {
+                inputs.push((o, p));
+            }
+        }
+        // An --html inside the output folder is written with the folder.
+        let html_outside: Vec<(&str, &std::path::Path)> = a
+            .html
+            .iter()
+            .filter(|h| !h.starts_with(&a.out))
+            .map(|h| ("--html", h.as_path()))
+            .collect();
+        lacuna::output::check_paths(&inputs, &html_outside, &[("--out", &a.out)])?;
+    }
     // T from the extraction's epochs.json when not given.
     if a.samples.is_none()
         && let Some(e) = &a.epochs
@@ -174,10 +194,15 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
             .as_u64()
             .map(|t| t as usize);
     }
-    if !(a.tol > 0.0) || a.folds < 2 {
-        return Err(LacunaError::InvalidOption(
-            "--tol must be positive and --folds at least 2".into(),
-        ));
+    {
+        use super::ranges::{float_in, int_in};
+        float_in("--tol", a.tol, 1e-300, 0.1)?;
+        int_in("--folds", a.folds, 2, 100)?;
+        int_in("--repeats", a.repeats, 1, 10_000)?;
+        int_in("--bootstrap", a.bootstrap, 0, 10_000)?;
+        if let Some(t) = a.samples {
+            int_in("--samples", t, 2, 1_000_000_000)?;
+        }
     }
     let say = |msg: &str| {
         if !a.quiet && std::io::stderr().is_terminal() {
@@ -601,15 +626,7 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
             lacuna::report::html::render(&summary, epochs.as_ref()).into_bytes(),
         ));
     }
-    for dir in [&a.out, &means_dir] {
-        std::fs::create_dir_all(dir).map_err(|source| LacunaError::Write {
-            path: dir.to_path_buf(),
-            source,
-        })?;
-    }
-    for (path, bytes) in &files {
-        write_atomic(path, bytes)?;
-    }
+    lacuna::output::write_outputs(Some(&a.out), files)?;
     if a.json {
         println!("{}", serde_json::to_string_pretty(&summary).expect("JSON"));
     } else if !a.quiet {

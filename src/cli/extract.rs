@@ -12,7 +12,6 @@ use lacuna::ingest::pipeline::{ExtractOptions, Extraction, SessionInput, extract
 use lacuna::ingest::text::{read_events_csv, read_signal_csv};
 use lacuna::ingest::{Event, SignalSource};
 use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan, read_mask};
-use lacuna::trials::npy::write_atomic;
 use lacuna::{LacunaError, Result};
 use serde_json::json;
 
@@ -41,11 +40,11 @@ pub struct ExtractArgs {
     /// Sampling rate in Hz for CSV recordings and NPY epochs.
     #[arg(long, value_name = "HZ")]
     rate: Option<f64>,
-    /// Epoch start relative to each event's onset, seconds.
+    /// Epoch start relative to each event's onset, seconds (±86400).
     #[arg(long, default_value_t = 0.0, allow_hyphen_values = true)]
     offset: f64,
-    /// Epoch length in seconds (with events). Default: each event's duration
-    /// when all events share one, else required.
+    /// Epoch length in seconds (with events; up to 86400). Default: each
+    /// event's duration when all events share one, else required.
     #[arg(long, value_name = "SECONDS")]
     length: Option<f64>,
     /// Fixed windows of this many seconds instead of events.
@@ -60,7 +59,7 @@ pub struct ExtractArgs {
     /// Band-pass in Hz, LOW-HIGH (zero-phase Butterworth). Default: no band filter.
     #[arg(long, value_name = "LOW-HIGH")]
     band: Option<String>,
-    /// Butterworth prototype order of the band-pass (the band-pass has twice the poles).
+    /// Butterworth prototype order of the band-pass (the band-pass has twice the poles); 1–10.
     #[arg(long, default_value_t = 4)]
     order: usize,
     /// Covariance estimator per epoch: oas, ledoit-wolf or sample.
@@ -79,16 +78,16 @@ pub struct ExtractArgs {
     /// Turn automatic detection off: only non-finite samples and --bad count.
     #[arg(long)]
     no_detect: bool,
-    /// Robust z-score beyond which deviation and high-frequency noise mask a channel.
+    /// Robust z-score beyond which deviation and high-frequency noise mask a channel (0.5–100).
     #[arg(long, default_value_t = 5.0)]
     z_threshold: f64,
-    /// Mask a channel whose largest |correlation| with the others is below this.
+    /// Mask a channel whose largest |correlation| with the others is below this (0–1).
     #[arg(long, default_value_t = 0.4)]
     min_correlation: f64,
-    /// Mask a channel whose robust SD falls below this fraction of its session median.
+    /// Mask a channel whose robust SD falls below this fraction of its session median (0–1).
     #[arg(long, default_value_t = 0.1)]
     flat_ratio: f64,
-    /// Mask a channel with at least this fraction of samples at the digital limits.
+    /// Mask a channel with at least this fraction of samples at the digital limits (1e-6–1).
     #[arg(long, default_value_t = 0.05)]
     rail_fraction: f64,
     /// Output folder: covs.npy (NaN where unobserved), mask.npy, mask.csv,
@@ -161,6 +160,49 @@ fn windowing_for(a: &ExtractArgs, events: Vec<Event>, source: &str) -> Result<Wi
 }
 
 pub fn run(a: ExtractArgs) -> Result<i32> {
+    {
+        let mut inputs: Vec<(&str, &Path)> = a
+            .recordings
+            .iter()
+            .map(|r| ("a recording", r.as_path()))
+            .chain(a.events.iter().map(|e| ("--events", e.as_path())))
+            .collect();
+        for (o, p) in [("--epochs", &a.epochs), ("--mask", &a.mask)] {
+            if let Some(p) = p {
+                inputs.push((o, p));
+            }
+        }
+        let outputs: Vec<(&str, &Path)> = a
+            .mask_report
+            .iter()
+            .filter(|m| !m.starts_with(&a.out))
+            .map(|m| ("--mask-report", m.as_path()))
+            .collect();
+        lacuna::output::check_paths(&inputs, &outputs, &[("--out", &a.out)])?;
+    }
+    {
+        // One documented range per option (see --help).
+        use super::ranges::{float_in, int_in};
+        const DAY: f64 = 86_400.0;
+        if let Some(r) = a.rate {
+            float_in("--rate", r, 1e-3, 1e6)?;
+        }
+        float_in("--offset", a.offset, -DAY, DAY)?;
+        for (o, v) in [
+            ("--length", a.length),
+            ("--window", a.window),
+            ("--step", a.step),
+        ] {
+            if let Some(v) = v {
+                float_in(o, v, 1e-6, DAY)?;
+            }
+        }
+        int_in("--order", a.order, 1, 10)?;
+        float_in("--z-threshold", a.z_threshold, 0.5, 100.0)?;
+        float_in("--min-correlation", a.min_correlation, 0.0, 1.0)?;
+        float_in("--flat-ratio", a.flat_ratio, 0.0, 1.0)?;
+        float_in("--rail-fraction", a.rail_fraction, 1e-6, 1.0)?;
+    }
     let estimator = Estimator::parse(&a.estimator).ok_or_else(|| {
         LacunaError::InvalidOption(format!(
             "--estimator {}: choose oas, ledoit-wolf or sample",
@@ -249,7 +291,15 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
         a.channels.clone()
     };
     let user_mask = match &a.mask {
-        Some(path) => Some(read_mask(path, n_epochs, channel_names.len())?.observed),
+        Some(path) => {
+            let m = read_mask(path, n_epochs, channel_names.len())?;
+            match &m.channels {
+                // A CSV mask is matched to the recording's channels by name,
+                // never by column position.
+                Some(header) => Some(mask_by_name(path, &m.observed, header, &channel_names)?),
+                None => Some(m.observed),
+            }
+        }
         None => None,
     };
     let opts = ExtractOptions {
@@ -381,11 +431,10 @@ fn write_outputs(
         .collect();
     for &e in &kept {
         let info = &out.epochs[e];
-        labels.push_str(&format!(
-            "{},{}\n",
+        labels.push_str(&lacuna::trials::io::csv_row(&[
             info.label.clone().unwrap_or_default(),
-            info.session
-        ));
+            info.session.clone(),
+        ]));
     }
     let p = out.channels.len();
     let epochs_json: Vec<serde_json::Value> = out
@@ -450,38 +499,74 @@ fn write_outputs(
         );
         for m in &out.masked {
             let info = &out.epochs[m.epoch];
-            s.push_str(&format!(
-                "{},{},{},{},{},{},{},{},{},{}\n",
-                m.epoch,
-                info.session,
-                info.onset,
-                m.channel,
-                m.reason.name(),
-                m.stats.non_finite,
-                m.stats.rail_fraction,
-                m.stats.robust_sd,
+            s.push_str(&lacuna::trials::io::csv_row(&[
+                m.epoch.to_string(),
+                info.session.clone(),
+                info.onset.to_string(),
+                m.channel.clone(),
+                m.reason.name().to_string(),
+                m.stats.non_finite.to_string(),
+                m.stats.rail_fraction.to_string(),
+                m.stats.robust_sd.to_string(),
                 m.stats.noise_ratio.map_or(String::new(), |v| v.to_string()),
-                m.stats.max_correlation
-            ));
+                m.stats.max_correlation.to_string(),
+            ]));
         }
         s
     });
-    std::fs::create_dir_all(&a.out).map_err(|source| LacunaError::Write {
-        path: a.out.clone(),
-        source,
-    })?;
-    write_atomic(&a.out.join("covs.npy"), &encode_stack_with_nan(set))?;
-    write_atomic(&a.out.join("mask.npy"), &encode_mask(set))?;
-    write_atomic(&a.out.join("mask.csv"), &mask_csv)?;
-    write_atomic(&a.out.join("labels.csv"), labels.as_bytes())?;
-    write_atomic(
-        &a.out.join("epochs.json"),
-        serde_json::to_string_pretty(&meta)
-            .expect("JSON")
-            .as_bytes(),
-    )?;
+    let mut files = vec![
+        (a.out.join("covs.npy"), encode_stack_with_nan(set)),
+        (a.out.join("mask.npy"), encode_mask(set)),
+        (a.out.join("mask.csv"), mask_csv),
+        (a.out.join("labels.csv"), labels.into_bytes()),
+        (
+            a.out.join("epochs.json"),
+            serde_json::to_string_pretty(&meta)
+                .unwrap_or_default()
+                .into_bytes(),
+        ),
+    ];
     if let (Some(path), Some(text)) = (&a.mask_report, report) {
-        write_atomic(path, text.as_bytes())?;
+        files.push((path.clone(), text.into_bytes()));
     }
-    Ok(())
+    lacuna::output::write_outputs(Some(&a.out), files)
+}
+
+/// Reorders a CSV mask's columns to `channels` by header name. Unknown,
+/// missing or repeated names are refused, naming them.
+fn mask_by_name(
+    path: &Path,
+    observed: &[bool],
+    header: &[String],
+    channels: &[String],
+) -> Result<Vec<bool>> {
+    let err = |message: String| LacunaError::Format {
+        path: path.to_path_buf(),
+        message,
+    };
+    let p = header.len();
+    let mut column = Vec::with_capacity(channels.len());
+    for c in channels {
+        let hits: Vec<usize> = (0..p).filter(|&k| &header[k] == c).collect();
+        match hits.as_slice() {
+            [k] => column.push(*k),
+            [] => {
+                return Err(err(format!(
+                    "the mask has no column named '{c}' (its header: {}); name the columns after the recording's channels",
+                    header.join(", ")
+                )));
+            }
+            _ => return Err(err(format!("the mask names channel '{c}' more than once"))),
+        }
+    }
+    if let Some(extra) = header.iter().find(|h| !channels.contains(h)) {
+        return Err(err(format!(
+            "the mask has a column '{extra}' that is not a channel of the recording ({})",
+            channels.join(", ")
+        )));
+    }
+    let n = observed.len() / p.max(1);
+    Ok((0..n)
+        .flat_map(|e| column.iter().map(move |&k| observed[e * p + k]))
+        .collect())
 }

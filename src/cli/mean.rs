@@ -92,9 +92,6 @@ pub struct MeanArgs {
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
     drop_unobserved: bool,
-    /// Worker threads (default: all cores). Results do not depend on it.
-    #[arg(long)]
-    threads: Option<usize>,
     /// Print nothing on stderr except errors.
     #[arg(long)]
     quiet: bool,
@@ -121,15 +118,34 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             a.init
         ))
     })?;
-    if !(a.tol > 0.0) || a.max_iter == 0 || a.starts == 0 || a.threads == Some(0) {
-        return Err(LacunaError::InvalidOption(
-            "--tol must be positive; --max-iter, --starts and --threads at least 1".into(),
-        ));
+    use super::ranges::{float_in, int_in};
+    float_in("--tol", a.tol, 1e-300, 0.1)?;
+    int_in("--max-iter", a.max_iter, 1, 1_000_000)?;
+    int_in("--starts", a.starts, 1, 1000)?;
+    float_in("--loading", a.loading, 1e-300, 1e6)?;
+    float_in("--shrinkage", a.shrinkage, 1e-300, 1.0)?;
+    if let Some(t) = a.samples {
+        int_in("--samples", t, 2, 1_000_000_000)?;
     }
-    if let Some(n) = a.threads {
-        let _ = rayon::ThreadPoolBuilder::new()
-            .num_threads(n)
-            .build_global();
+    if let Some(r) = a.rank {
+        int_in("--rank", r, 1, 100_000)?;
+    }
+    {
+        let mut inputs: Vec<(&str, &std::path::Path)> = vec![("--covs", &a.covs)];
+        for (o, p) in [
+            ("--mask", &a.mask),
+            ("--weights", &a.weights),
+            ("--positions", &a.positions),
+        ] {
+            if let Some(p) = p {
+                inputs.push((o, p));
+            }
+        }
+        let mut outputs: Vec<(&str, &std::path::Path)> = vec![("--out", &a.out)];
+        if let Some(r) = &a.report {
+            outputs.push(("--report", r));
+        }
+        lacuna::output::check_paths(&inputs, &outputs, &[])?;
     }
     let started = Instant::now();
     let mut set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;

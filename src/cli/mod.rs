@@ -8,6 +8,7 @@ mod compare;
 mod extract;
 mod mean;
 mod progress;
+mod ranges;
 mod report;
 mod synth;
 
@@ -34,6 +35,36 @@ use clap::{Parser, Subcommand};
 pub struct Cli {
     #[command(subcommand)]
     command: Command,
+    /// Worker threads (default: all cores; at most 8 per core). Results do
+    /// not depend on it.
+    #[arg(long, global = true, value_name = "N")]
+    threads: Option<usize>,
+}
+
+/// Most worker threads per core: beyond this, threads only cost memory.
+const THREADS_PER_CORE: usize = 8;
+
+/// Starts the global worker pool: `--threads` (capped at 8 per core, said
+/// on stderr), else one per core. A pool that cannot start (process limits)
+/// is an error with advice, never a panic later.
+fn start_pool(threads: Option<usize>) -> Result<(), String> {
+    let cores = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let cap = THREADS_PER_CORE * cores;
+    let n = match threads {
+        Some(0) => return Err("--threads must be at least 1".into()),
+        Some(n) if n > cap => {
+            eprintln!("note: --threads {n} capped at {cap} (8 per core on this machine's {cores})");
+            cap
+        }
+        Some(n) => n,
+        None => cores,
+    };
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(n)
+        .build_global()
+        .map_err(|e| {
+            format!("cannot start {n} worker thread(s): {e}; raise the process limit (ulimit -u) or pass --threads 1")
+        })
 }
 
 #[derive(Subcommand, Debug)]
@@ -70,6 +101,10 @@ pub fn run() -> i32 {
             return if e.use_stderr() { 2 } else { 0 };
         }
     };
+    if let Err(msg) = start_pool(cli.threads) {
+        eprintln!("error: {msg}");
+        return if msg.starts_with("--threads") { 2 } else { 1 };
+    }
     let outcome = match cli.command {
         Command::Extract(args) => extract::run(args),
         Command::Mean(args) => mean::run(args),

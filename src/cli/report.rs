@@ -25,6 +25,7 @@ pub struct ReportArgs {
 
 /// Reads and parses a JSON file, naming it in errors.
 pub fn read_json(path: &Path) -> Result<serde_json::Value> {
+    lacuna::trials::io::require_regular(path)?;
     let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
         path: path.to_path_buf(),
         source,
@@ -37,6 +38,13 @@ pub fn read_json(path: &Path) -> Result<serde_json::Value> {
 
 pub fn run(a: ReportArgs) -> Result<i32> {
     let path = a.compare.join("compare.json");
+    {
+        let mut inputs: Vec<(&str, &Path)> = vec![("--compare (compare.json)", &path)];
+        if let Some(e) = &a.epochs {
+            inputs.push(("--epochs", e));
+        }
+        lacuna::output::check_paths(&inputs, &[("--out", &a.out)], &[])?;
+    }
     let compare = read_json(&path)?;
     if compare["compare_version"].as_str() != Some("1") {
         return Err(LacunaError::Format {
@@ -45,6 +53,10 @@ pub fn run(a: ReportArgs) -> Result<i32> {
                 .into(),
         });
     }
+    lacuna::report::compare_check::check_compare(&compare).map_err(|why| LacunaError::Format {
+        path: path.clone(),
+        message: format!("{why}; rerun `lacuna compare` to rebuild the folder"),
+    })?;
     let epochs = match &a.epochs {
         Some(e) => {
             let doc = read_json(e)?;

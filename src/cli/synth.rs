@@ -47,31 +47,32 @@ pub struct SynthArgs {
     /// Which simulated study to write.
     #[arg(long, value_enum, default_value = "headset")]
     scenario: Scenario,
-    /// Number of trials (uniform: 200; recording: 30 per session).
+    /// Number of trials (uniform: 200; recording: 30 per session); 1–100000.
     #[arg(long)]
     trials: Option<usize>,
-    /// Number of channels (uniform: 16; recording: 24).
+    /// Number of channels (uniform: 16; recording: 24); 2–256.
     #[arg(long)]
     channels: Option<usize>,
-    /// Sessions (recording scenario).
+    /// Sessions (recording scenario); 1–100.
     #[arg(long, default_value_t = 3)]
     sessions: usize,
-    /// Sampling rate in Hz (recording scenario).
+    /// Sampling rate in Hz (recording scenario); 64–5000.
     #[arg(long, default_value_t = 256)]
     rate: usize,
     /// File format of the recording scenario.
     #[arg(long, value_enum, default_value = "edf")]
     format: RecordingFormat,
-    /// Samples per trial: how noisy each trial's covariance is.
+    /// Samples per trial: how noisy each trial's covariance is; more than
+    /// the channel count, at most 1e6.
     #[arg(long, default_value_t = 256)]
     samples: usize,
-    /// Fraction of trials that lose channels (uniform scenario).
+    /// Fraction of trials that lose channels (uniform scenario); 0–1.
     #[arg(long, default_value_t = 0.3)]
     dropout: f64,
-    /// Most channels a trial can lose (uniform scenario).
+    /// Most channels a trial can lose (uniform scenario); 1 to channels − 1.
     #[arg(long, default_value_t = 4)]
     max_lost: usize,
-    /// Condition number of the population covariance (uniform scenario).
+    /// Condition number of the population covariance (uniform scenario); 1–1e8.
     #[arg(long, default_value_t = 100.0)]
     condition: f64,
     /// Random seed; the same seed gives the same files.
@@ -92,20 +93,17 @@ pub fn run(a: SynthArgs) -> Result<i32> {
     };
     let trials = a.trials.unwrap_or(default_trials);
     let channels = a.channels.unwrap_or(default_channels);
-    if channels < 2
-        || trials == 0
-        || a.samples == 0
-        || !(0.0..=1.0).contains(&a.dropout)
-        || a.max_lost == 0
-        || !(a.condition >= 1.0)
-    {
-        return Err(LacunaError::InvalidOption("need --channels ≥ 2, --trials ≥ 1, --samples ≥ 1, --dropout in [0, 1], --max-lost ≥ 1, --condition ≥ 1".into()));
-    }
-    if a.sessions == 0 || a.rate < 64 {
-        return Err(LacunaError::InvalidOption(
-            "need --sessions ≥ 1 and --rate ≥ 64 Hz".into(),
-        ));
-    }
+    // One documented range per option (see --help); the covariance-level
+    // scenarios need more samples than channels for SPD trial covariances.
+    use super::ranges::{float_in, int_in};
+    int_in("--channels", channels, 2, 256)?;
+    int_in("--trials", trials, 1, 100_000)?;
+    int_in("--sessions", a.sessions, 1, 100)?;
+    int_in("--rate", a.rate, 64, 5000)?;
+    int_in("--samples", a.samples, channels + 1, 1_000_000)?;
+    float_in("--dropout", a.dropout, 0.0, 1.0)?;
+    int_in("--max-lost", a.max_lost, 1, channels - 1)?;
+    float_in("--condition", a.condition, 1.0, 1e8)?;
     std::fs::create_dir_all(&a.out).map_err(|source| LacunaError::Write {
         path: a.out.clone(),
         source,
@@ -120,7 +118,10 @@ pub fn run(a: SynthArgs) -> Result<i32> {
             write_set(&a.out, &study.trials)?;
             let mut labels = String::from("label,session\n");
             for (l, s) in study.labels.iter().zip(&study.sessions) {
-                labels.push_str(&format!("{l},{s}\n"));
+                labels.push_str(&lacuna::trials::io::csv_row(&[
+                    l.to_string(),
+                    s.to_string(),
+                ]));
             }
             write_atomic(&a.out.join("labels.csv"), labels.as_bytes())?;
             // The same trials before any electrode was lost: the complete-data
@@ -235,11 +236,13 @@ fn write_recording(a: &SynthArgs, trials: usize, channels: usize) -> Result<()> 
     }
     let mut labels = String::from("label,session\n");
     let mut faults = String::from("trial,session,channel,fault\n");
-    let mut mask = study.channels.join(",");
-    mask.push('\n');
+    let mut mask = lacuna::trials::io::csv_row(&study.channels);
     for (i, (label, row)) in study.labels.iter().zip(&study.faults).enumerate() {
         let session = format!("session-{}", i / trials + 1);
-        labels.push_str(&format!("{label},{session}\n"));
+        labels.push_str(&lacuna::trials::io::csv_row(&[
+            label.to_string(),
+            session.clone(),
+        ]));
         let cells: Vec<&str> = row
             .iter()
             .map(|f| if f.is_some() { "0" } else { "1" })

@@ -308,6 +308,7 @@ impl EdfFile {
             path: path.to_path_buf(),
             source,
         };
+        crate::trials::io::require_regular(path)?;
         let mut file = File::open(path).map_err(read_err)?;
         let file_len = file.metadata().map_err(read_err)?.len();
         let mut fixed = vec![0u8; 256.min(file_len as usize)];

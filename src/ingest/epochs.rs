@@ -79,6 +79,12 @@ pub fn plan_epochs(source: &dyn SignalSource, windowing: &Windowing) -> Result<V
                 )));
             }
             let len = (length * fs).round() as usize;
+            if len < 2 {
+                return Err(LacunaError::InvalidOption(format!(
+                    "{}: a {length} s epoch is {len} sample(s) at {fs} Hz; a covariance needs at least 2",
+                    source.name()
+                )));
+            }
             let mut out = Vec::new();
             let mut outside = Vec::new();
             for (k, e) in events.iter().enumerate() {
@@ -87,7 +93,9 @@ pub fn plan_epochs(source: &dyn SignalSource, windowing: &Windowing) -> Result<V
                 }
                 let t0 = e.onset + offset;
                 let start = (t0 * fs).round();
-                if start < 0.0 || start as usize + len > n {
+                // In floating point: a huge or non-finite onset must not
+                // overflow the sample arithmetic (it is simply outside).
+                if !(start >= 0.0) || start + len as f64 > n as f64 {
                     outside.push(format!(
                         "event {} ({} at {} s): window {:.3}–{:.3} s",
                         k + 1,

@@ -19,6 +19,7 @@ fn format_err(path: &Path, message: String) -> LacunaError {
 }
 
 fn reader(path: &Path) -> Result<csv::Reader<std::fs::File>> {
+    crate::trials::io::require_regular(path)?;
     csv::ReaderBuilder::new()
         .trim(csv::Trim::All)
         .from_path(path)

@@ -6,6 +6,7 @@
 //!   drawn with our own small SVG writer (`svg`) and CIELAB colour maps (`colors`).
 
 pub mod colors;
+pub mod compare_check;
 pub mod epochs_check;
 pub mod html;
 pub mod json;

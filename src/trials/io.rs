@@ -137,6 +137,7 @@ pub fn read_mask(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
 }
 
 fn read_mask_csv(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
+    require_regular(path)?;
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(true)
         .from_path(path)
@@ -203,6 +204,7 @@ fn read_mask_csv(path: &Path, n: usize, p: usize) -> Result<MaskFile> {
 /// Reads trial weights: NPY float64 `(N,)` or a one-column CSV (header optional).
 pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
     let w = if is_csv(path) {
+        require_regular(path)?;
         let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
             path: path.to_path_buf(),
             source,
@@ -256,6 +258,7 @@ fn stack_shape(path: &Path) -> Result<(usize, usize, npy::NpyHeader)> {
         path: path.to_path_buf(),
         source,
     };
+    require_regular(path)?;
     let mut f = std::fs::File::open(path).map_err(read_err)?;
     let mut first = Vec::new();
     (&mut f)
@@ -279,6 +282,16 @@ fn stack_shape(path: &Path) -> Result<(usize, usize, npy::NpyHeader)> {
     }
     let len = f.metadata().map_err(read_err)?.len() as usize;
     let need = h.data_start + h.count * h.width;
+    if len > need {
+        return Err(format_err(
+            path,
+            format!(
+                "{} bytes follow the array of shape {:?}: the data must be exactly what the shape says (docs/formats.md)",
+                len - need,
+                h.shape
+            ),
+        ));
+    }
     if len < need {
         return Err(format_err(
             path,
@@ -391,8 +404,7 @@ fn with_mask_hint(mut problems: Vec<TrialProblem>) -> Vec<TrialProblem> {
 pub fn encode_matrix(path: &Path, m: &Mat, channels: &[String]) -> Vec<u8> {
     let p = m.nrows();
     if is_csv(path) {
-        let mut s = channels.join(",");
-        s.push('\n');
+        let mut s = csv_row(channels);
         for i in 0..p {
             // NaN (not estimated) is an empty cell.
             let row: Vec<String> = (0..p)
@@ -423,6 +435,7 @@ pub fn write_matrix(path: &Path, m: &Mat, channels: &[String]) -> Result<()> {
 /// Reads a `(p, p)` matrix from NPY or a CSV with a header row.
 pub fn read_matrix(path: &Path) -> Result<Mat> {
     if is_csv(path) {
+        require_regular(path)?;
         let mut rdr = csv::Reader::from_path(path).map_err(|e| format_err(path, e.to_string()))?;
         let p = rdr
             .headers()
@@ -479,8 +492,7 @@ pub fn encode_mask(set: &TrialSet) -> Vec<u8> {
 /// Encodes a trial set's mask as CSV: a header of channel names, then one
 /// row of 0/1 per trial (1 = observed).
 pub fn encode_mask_csv(set: &TrialSet) -> Vec<u8> {
-    let mut s = set.channels().join(",");
-    s.push('\n');
+    let mut s = csv_row(set.channels());
     for row in set.mask().chunks(set.n_channels()) {
         let cells: Vec<&str> = row.iter().map(|&b| if b { "1" } else { "0" }).collect();
         s.push_str(&cells.join(","));
@@ -493,6 +505,7 @@ pub fn encode_mask_csv(set: &TrialSet) -> Vec<u8> {
 /// them in the order of `channels`, scaled to the unit sphere. Every channel
 /// must be listed; extra rows are ignored.
 pub fn read_positions(path: &Path, channels: &[String]) -> Result<Vec<[f64; 3]>> {
+    require_regular(path)?;
     let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
         path: path.to_path_buf(),
         source,
@@ -558,6 +571,7 @@ pub fn read_positions(path: &Path, channels: &[String]) -> Result<Vec<[f64; 3]>>
 /// column named `label` (or the first column) is the label; a column named
 /// `session`, when present, gives the session.
 pub fn read_labels(path: &Path, n: usize) -> Result<(Vec<String>, Option<Vec<String>>)> {
+    require_regular(path)?;
     let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
         path: path.to_path_buf(),
         source,
@@ -590,4 +604,56 @@ pub fn read_labels(path: &Path, n: usize) -> Result<(Vec<String>, Option<Vec<Str
         ));
     }
     Ok((labels, session_col.map(|_| sessions)))
+}
+
+/// Reads a whole input file that must be a regular file (not a FIFO, device
+/// or folder), so that its size is known before reading: `/dev/zero` or a
+/// pipe cannot grow memory without bound.
+pub fn read_regular_file(path: &Path) -> Result<Vec<u8>> {
+    let read_err = |source| LacunaError::Read {
+        path: path.to_path_buf(),
+        source,
+    };
+    let meta = require_regular(path)?;
+    let mut bytes = Vec::with_capacity(meta.len() as usize);
+    use std::io::Read;
+    std::fs::File::open(path)
+        .map_err(read_err)?
+        .take(meta.len())
+        .read_to_end(&mut bytes)
+        .map_err(read_err)?;
+    Ok(bytes)
+}
+
+/// Refuses an input that is not a regular file before it is opened: opening
+/// a FIFO blocks, and a device has no size to check reads against.
+pub fn require_regular(path: &Path) -> Result<std::fs::Metadata> {
+    let meta = std::fs::metadata(path).map_err(|source| LacunaError::Read {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    if !meta.is_file() {
+        return Err(format_err(
+            path,
+            "not a regular file (a pipe, device or folder); give lacuna a file on disk",
+        ));
+    }
+    Ok(meta)
+}
+
+/// One CSV record with its newline, every field quoted when it must be
+/// (commas, quotes, line breaks, surrounding spaces), by the csv crate: the
+/// one writer of names and labels into CSV outputs.
+pub fn csv_row<S: AsRef<str>>(fields: &[S]) -> String {
+    let mut w = csv::WriterBuilder::new()
+        .terminator(csv::Terminator::Any(b'\n'))
+        .quote_style(csv::QuoteStyle::Necessary)
+        .from_writer(Vec::new());
+    // Writing to memory cannot fail; an empty record is written as "".
+    if fields.is_empty() {
+        return "\n".into();
+    }
+    let _ = w.write_record(fields.iter().map(|f| f.as_ref().as_bytes()));
+    let bytes = w.into_inner().unwrap_or_default();
+    String::from_utf8(bytes).unwrap_or_default()
 }

@@ -102,6 +102,25 @@ impl TrialSet {
                 message: "the set holds no trials".into(),
             });
         }
+        // Names must identify channels: no empty and no repeated names.
+        let mut seen = std::collections::BTreeMap::new();
+        for (c, n) in channels.iter().enumerate() {
+            if n.trim().is_empty() {
+                problems.push(TrialProblem {
+                    trial: None,
+                    channel: Some(format!("#{c}")),
+                    message: "channel name is empty; give every channel a name".into(),
+                });
+            } else if let Some(first) = seen.insert(n.as_str(), c) {
+                problems.push(TrialProblem {
+                    trial: None,
+                    channel: Some(n.clone()),
+                    message: format!(
+                        "channel name repeated (columns {first} and {c}); names must be unique"
+                    ),
+                });
+            }
+        }
         let mut ranks = vec![0; trials.len()];
         for (i, t) in trials.iter_mut().enumerate() {
             if t.observed.is_empty() {
@@ -268,8 +287,11 @@ impl TrialSet {
 
     /// Weights scaled to sum to one.
     pub fn normalized_weights(&self) -> Vec<f64> {
-        let s: f64 = self.weights.iter().sum();
-        self.weights.iter().map(|w| w / s).collect()
+        // Scale by the largest first, so huge weights cannot overflow the sum.
+        let top = self.weights.iter().copied().fold(0.0f64, f64::max);
+        let scaled: Vec<f64> = self.weights.iter().map(|w| w / top).collect();
+        let s: f64 = scaled.iter().sum();
+        scaled.iter().map(|w| w / s).collect()
     }
 
     /// Whether trial `i` observed channel `c`.

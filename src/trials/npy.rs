@@ -8,7 +8,6 @@
 //! Specification: the NumPy Enhancement Proposal NEP 1 ("A simple file format
 //! for NumPy arrays").
 
-use std::io::Write;
 use std::path::Path;
 
 use crate::error::{LacunaError, Result};
@@ -44,10 +43,7 @@ fn format_err(path: &Path, message: impl Into<String>) -> LacunaError {
 
 /// Reads an NPY file from disk.
 pub fn read_npy(path: &Path) -> Result<NpyArray> {
-    let bytes = std::fs::read(path).map_err(|source| LacunaError::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
+    let bytes = crate::trials::io::read_regular_file(path)?;
     parse_npy(&bytes, path)
 }
 
@@ -102,6 +98,16 @@ pub fn parse_header(bytes: &[u8], path: &Path) -> Result<NpyHeader> {
     }
     let header = std::str::from_utf8(&bytes[header_start..data_start])
         .map_err(|_| format_err(path, "NPY header is not text"))?;
+    for key in ["descr", "fortran_order", "shape"] {
+        let n = header.matches(&format!("'{key}'")).count()
+            + header.matches(&format!("\"{key}\"")).count();
+        if n > 1 {
+            return Err(format_err(
+                path,
+                format!("NPY header names '{key}' {n} times; a header holds each key once"),
+            ));
+        }
+    }
     let descr = dict_value(header, "descr")
         .map(|v| v.trim_matches(|c| c == '\'' || c == '"').to_string())
         .ok_or_else(|| format_err(path, "NPY header has no 'descr'"))?;
@@ -164,6 +170,16 @@ pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<NpyArray> {
                 "truncated NPY data: shape {:?} needs {need} bytes, the file holds {}",
                 shape,
                 payload.len()
+            ),
+        ));
+    }
+    if payload.len() > need {
+        return Err(format_err(
+            path,
+            format!(
+                "{} bytes follow the array of shape {:?}: the data must be exactly what the shape says",
+                payload.len() - need,
+                shape
             ),
         ));
     }
@@ -298,29 +314,7 @@ pub fn encode_u8(shape: &[usize], data: &[u8]) -> Vec<u8> {
 /// Writes bytes to `path` atomically: a temporary file in the same folder,
 /// flushed and then renamed, so a failure never leaves half a file behind.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
-    let err = |source| LacunaError::Write {
-        path: path.to_path_buf(),
-        source,
-    };
-    let dir = path
-        .parent()
-        .filter(|p| !p.as_os_str().is_empty())
-        .unwrap_or(Path::new("."));
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().to_string())
-        .unwrap_or_default();
-    let tmp = dir.join(format!(".{name}.{}.partial", std::process::id()));
-    let result = (|| {
-        let mut f = std::fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
-        f.sync_all()?;
-        std::fs::rename(&tmp, path)
-    })();
-    if result.is_err() {
-        let _ = std::fs::remove_file(&tmp);
-    }
-    result.map_err(err)
+    crate::output::write_atomic(path, bytes)
 }
 
 #[cfg(test)]

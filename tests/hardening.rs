@@ -1,0 +1,437 @@
+//! Hostile and unlucky input through the command line: every refusal has its
+//! exit code (2 usage, 3 input), names what is wrong, writes nothing and
+//! never panics; no output destroys an input or writes through a link.
+//! Source of every expectation: common practice, no source (GUIDE §4 exit codes).
+
+mod common;
+
+use common::{Dir, demo_recording, extract_demo, lacuna, s};
+use lacuna::trials::npy::encode_f64;
+
+fn demo(f: &str) -> String {
+    format!("{}/demo-data/{f}", env!("CARGO_MANIFEST_DIR"))
+}
+
+fn no_panic(err: &str) {
+    assert!(!err.contains("panicked"), "panic: {err}");
+}
+
+#[test]
+fn outputs_never_replace_inputs() {
+    let d = Dir::new("same");
+    let covs = d.write("covs.npy", &std::fs::read(demo("covs.npy")).unwrap());
+    let before = std::fs::read(&covs).unwrap();
+    let mask = demo("mask.csv");
+    for args in [
+        vec![
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            &mask,
+            "--out",
+            s(&covs),
+        ],
+        vec!["mean", "--covs", s(&covs), "--mask", &mask, "--out", &mask],
+        vec![
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            &mask,
+            "--out",
+            "x.npy",
+            "--report",
+            "x.npy",
+        ],
+    ] {
+        let (code, _, err) = lacuna(&args);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        assert!(err.contains("--out") || err.contains("--report"), "{err}");
+    }
+    assert_eq!(std::fs::read(&covs).unwrap(), before);
+    // extract: the mask report may not be a recording; the output folder may
+    // not hold the inputs.
+    let rec = demo_recording("session-1.edf");
+    let (code, _, err) = lacuna(&[
+        "extract",
+        &rec,
+        "--offset",
+        "0.5",
+        "--length",
+        "2",
+        "--out",
+        s(&d.path("t")),
+        "--mask-report",
+        &rec,
+    ]);
+    assert_eq!(code, 2, "{err}");
+    let (code, _, err) = lacuna(&[
+        "extract",
+        &rec,
+        "--offset",
+        "0.5",
+        "--length",
+        "2",
+        "--out",
+        &format!("{}/demo-data/recording", env!("CARGO_MANIFEST_DIR")),
+    ]);
+    assert_eq!(code, 2, "{err}");
+    assert!(std::path::Path::new(&rec).exists());
+}
+
+#[test]
+fn links_devices_and_foreign_folders_are_not_written() {
+    let d = Dir::new("links");
+    let victim = d.write("victim.txt", b"keep");
+    let link = d.path("m.npy");
+    std::os::unix::fs::symlink(&victim, &link).unwrap();
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        &demo("mask.csv"),
+        "--out",
+        s(&link),
+    ]);
+    assert_eq!(code, 2, "{err}");
+    assert_eq!(std::fs::read(&victim).unwrap(), b"keep");
+    assert!(
+        std::fs::symlink_metadata(&link)
+            .unwrap()
+            .file_type()
+            .is_symlink()
+    );
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        &demo("mask.csv"),
+        "--out",
+        "/dev/null",
+    ]);
+    assert_eq!(code, 2, "{err}");
+    // An output folder that holds someone else's file is not replaced.
+    let out = d.path("busy");
+    std::fs::create_dir_all(&out).unwrap();
+    std::fs::write(out.join("notes.txt"), b"mine").unwrap();
+    let (code, _, err) = extract_demo(&out, &[]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("notes.txt"), "{err}");
+    assert_eq!(std::fs::read(out.join("notes.txt")).unwrap(), b"mine");
+    // A previous run's folder is replaced whole.
+    let t = d.path("trials");
+    assert_eq!(extract_demo(&t, &[]).0, 0);
+    assert_eq!(extract_demo(&t, &[]).0, 0);
+    let left: Vec<_> = std::fs::read_dir(&d.0)
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().contains(".partial"))
+        .collect();
+    assert!(left.is_empty(), "orphaned temporary files");
+}
+
+#[test]
+fn non_finite_and_out_of_range_options_are_usage_errors() {
+    let d = Dir::new("ranges");
+    let covs = demo("covs.npy");
+    let mask = demo("mask.csv");
+    let out = d.path("m.npy");
+    for (opt, val) in [
+        ("--tol", "nan"),
+        ("--tol", "inf"),
+        ("--tol", "0"),
+        ("--loading", "1e308"),
+        ("--shrinkage", "2"),
+        ("--samples", "0"),
+        ("--starts", "0"),
+    ] {
+        let (code, _, err) = lacuna(&[
+            "mean",
+            "--covs",
+            &covs,
+            "--mask",
+            &mask,
+            "--out",
+            s(&out),
+            opt,
+            val,
+        ]);
+        assert_eq!(code, 2, "{opt} {val}: {err}");
+        assert!(err.contains(opt), "{err}");
+        no_panic(&err);
+    }
+    assert!(!out.exists());
+    let t = d.path("t");
+    for (opt, val) in [
+        ("--offset", "nan"),
+        ("--offset", "1e17"),
+        ("--z-threshold", "nan"),
+        ("--min-correlation", "2"),
+        ("--rail-fraction", "0"),
+        ("--order", "0"),
+    ] {
+        let (code, _, err) = extract_demo(&t, &[opt, val]);
+        assert_eq!(code, 2, "{opt} {val}: {err}");
+        no_panic(&err);
+    }
+    let (code, _, err) = extract_demo(&t, &["--length", "1e17"]);
+    assert_eq!(code, 2, "{err}");
+    for args in [
+        vec![
+            "--samples",
+            "15",
+            "--channels",
+            "16",
+            "--scenario",
+            "uniform",
+        ],
+        vec!["--condition", "1e300", "--scenario", "uniform"],
+        vec!["--channels", "100000"],
+        vec!["--trials", "1e12"],
+        vec!["--dropout", "nan"],
+    ] {
+        let mut a = vec!["synth", "--out", s(&t)];
+        a.extend(args.iter());
+        let (code, _, err) = lacuna(&a);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        no_panic(&err);
+    }
+    assert!(!t.exists());
+    // Far too many threads: capped and said, not thousands spawned.
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &covs,
+        "--mask",
+        &mask,
+        "--out",
+        s(&out),
+        "--threads",
+        "100000",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(err.contains("capped"), "{err}");
+}
+
+#[test]
+fn huge_event_onsets_are_outside_the_recording() {
+    let d = Dir::new("events");
+    let ev = d.write("ev.csv", b"onset,duration,label\n1e17,2,a\n1,2,b\n");
+    let rec = demo_recording("session-1.edf");
+    let (code, _, err) = lacuna(&[
+        "extract",
+        &rec,
+        "--events",
+        s(&ev),
+        "--length",
+        "2",
+        "--out",
+        s(&d.path("t")),
+    ]);
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("outside the recording"), "{err}");
+    no_panic(&err);
+}
+
+// Twenty weights of 1e308 overflow a plain sum; they are equal weights.
+#[test]
+fn huge_weights_are_normalised_safely() {
+    let d = Dir::new("weights");
+    let data: Vec<f64> = vec![1e308; 240];
+    let w = d.write("w.npy", &encode_f64(&[240], &data));
+    let (a, b) = (d.path("a.npy"), d.path("b.npy"));
+    let (covs, mask) = (demo("covs.npy"), demo("mask.csv"));
+    for (out, extra) in [(&a, vec!["--weights", s(&w)]), (&b, vec![])] {
+        let mut args = vec![
+            "mean",
+            "--covs",
+            &covs,
+            "--mask",
+            &mask,
+            "--out",
+            s(out),
+        ];
+        args.extend(extra);
+        let (code, _, err) = lacuna(&args);
+        assert_eq!(code, 0, "{err}");
+    }
+    assert_eq!(std::fs::read(&a).unwrap(), std::fs::read(&b).unwrap());
+}
+
+#[test]
+fn malformed_files_are_refused_not_misread() {
+    let d = Dir::new("files");
+    // NPY with the shape key twice, and NPY with bytes after the array.
+    let good = encode_f64(&[1, 2, 2], &[1.0, 0.0, 0.0, 1.0]);
+    let text = String::from_utf8_lossy(&good[10..]).to_string();
+    let twice = text.replacen(
+        "'shape': (1, 2, 2), ",
+        "'shape': (1, 2, 2), 'shape': (1, 2, 2),",
+        1,
+    );
+    assert_ne!(twice, text);
+    let mut dup = good[..8].to_vec();
+    let hdr = twice.trim_end_matches(|c: char| c != '}').to_string();
+    let mut dict = hdr.clone();
+    let total = 10 + dict.len() + 1;
+    dict.push_str(&" ".repeat((64 - total % 64) % 64));
+    dict.push('\n');
+    dup.extend_from_slice(&(dict.len() as u16).to_le_bytes());
+    dup.extend_from_slice(dict.as_bytes());
+    for v in [1.0f64, 0.0, 0.0, 1.0] {
+        dup.extend_from_slice(&v.to_le_bytes());
+    }
+    let mut trailing = good.clone();
+    trailing.extend_from_slice(&[0u8; 8]);
+    for (name, bytes, needle) in [
+        ("dup.npy", dup, "'shape' 2 times"),
+        ("trailing.npy", trailing, "bytes follow the array"),
+    ] {
+        let f = d.write(name, &bytes);
+        let (code, _, err) = lacuna(&["mean", "--covs", s(&f), "--out", s(&d.path("m.npy"))]);
+        assert_eq!(code, 3, "{name}: {err}");
+        assert!(err.contains(needle), "{name}: {err}");
+    }
+    // A pipe or device is not read (it would block or grow without bound).
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        "/dev/zero",
+        "--out",
+        s(&d.path("m.npy")),
+    ]);
+    assert_eq!(code, 3, "{err}");
+    // Repeated channel names in a mask header are refused, named.
+    let mask = std::fs::read_to_string(demo("mask.csv")).unwrap();
+    let first = mask.lines().next().unwrap().to_string();
+    let names: Vec<&str> = first.split(',').collect();
+    let dup_header = first.replacen(names[1], names[0], 1);
+    let m = d.write("dup.csv", mask.replacen(&first, &dup_header, 1).as_bytes());
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        s(&m),
+        "--out",
+        s(&d.path("m.npy")),
+    ]);
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("repeated"), "{err}");
+    // A compare.json whose channel list is shorter than its matrices.
+    let cmp = d.path("cmp");
+    std::fs::create_dir_all(&cmp).unwrap();
+    let doc = serde_json::json!({"compare_version": "1", "channels": ["a"], "trials": 2,
+        "coobservation": [[2, 1], [1, 2]], "unconstrained_pairs": [], "schemes": []});
+    std::fs::write(cmp.join("compare.json"), doc.to_string()).unwrap();
+    let (code, _, err) = lacuna(&[
+        "report",
+        "--compare",
+        s(&cmp),
+        "--out",
+        s(&d.path("r.html")),
+    ]);
+    assert_eq!(code, 3, "{err}");
+    no_panic(&err);
+    assert!(!d.path("r.html").exists());
+}
+
+// Names with commas, quotes, line breaks and non-ASCII survive the CSV round
+// trip (one writer, one reader).
+#[test]
+fn names_are_quoted_in_csv_outputs() {
+    use lacuna::trials::io::{csv_row, encode_mask_csv};
+    let names: Vec<String> = ["Fp1,Ref", "a\"b", "line\nbreak", "Ωz"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
+    let row = csv_row(&names);
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(false)
+        .from_reader(row.as_bytes());
+    let back: Vec<String> = rdr
+        .records()
+        .next()
+        .unwrap()
+        .unwrap()
+        .iter()
+        .map(str::to_string)
+        .collect();
+    assert_eq!(back, names);
+    let set =
+        lacuna::trials::TrialSet::from_full(names.clone(), vec![lacuna::Mat::identity(4, 4)], None)
+            .unwrap();
+    let d = Dir::new("quote");
+    let m = d.write("mask.csv", &encode_mask_csv(&set));
+    let covs = d.write("c.npy", &lacuna::trials::io::encode_stack_with_nan(&set));
+    let out = d.path("m.csv");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&m),
+        "--scheme",
+        "arithmetic",
+        "--out",
+        s(&out),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let mut rdr = csv::Reader::from_path(&out).unwrap();
+    let header: Vec<String> = rdr.headers().unwrap().iter().map(str::to_string).collect();
+    assert_eq!(header, names);
+}
+
+// A CSV mask for extract is matched by channel name: with its columns
+// reversed, the same electrode is masked.
+#[test]
+fn extract_mask_columns_are_matched_by_name() {
+    let d = Dir::new("maskname");
+    let rec = demo_recording("session-1.edf");
+    let first = d.path("first");
+    let base = ["--offset", "0.5", "--length", "2", "--band", "8-30"];
+    let mut args = vec!["extract", rec.as_str()];
+    args.extend(base);
+    args.extend(["--out", s(&first)]);
+    assert_eq!(lacuna(&args).0, 0);
+    let written = std::fs::read_to_string(first.join("mask.csv")).unwrap();
+    let header: Vec<String> = written
+        .lines()
+        .next()
+        .unwrap()
+        .split(',')
+        .map(str::to_string)
+        .collect();
+    let n = written.lines().count() - 1;
+    let p = header.len();
+    // Mask only the first channel, columns written in reverse order.
+    let mut rev = header.clone();
+    rev.reverse();
+    let mut text = rev.join(",") + "\n";
+    for _ in 0..n {
+        let row: Vec<&str> = (0..p).map(|k| if k == p - 1 { "0" } else { "1" }).collect();
+        text.push_str(&(row.join(",") + "\n"));
+    }
+    let m = d.write("mask.csv", text.as_bytes());
+    let out = d.path("second");
+    let mut args = vec!["extract", rec.as_str()];
+    args.extend(base);
+    args.extend(["--mask", s(&m), "--out", s(&out)]);
+    let (code, _, err) = lacuna(&args);
+    assert_eq!(code, 0, "{err}");
+    let got = std::fs::read_to_string(out.join("mask.csv")).unwrap();
+    for line in got.lines().skip(1) {
+        let cells: Vec<&str> = line.split(',').collect();
+        assert_eq!(
+            cells[0], "0",
+            "the first channel ({}) is the one masked",
+            header[0]
+        );
+        assert!(cells[1..].iter().all(|&c| c == "1"));
+    }
+}
