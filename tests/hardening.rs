@@ -245,15 +245,7 @@ fn huge_weights_are_normalised_safely() {
     let (a, b) = (d.path("a.npy"), d.path("b.npy"));
     let (covs, mask) = (demo("covs.npy"), demo("mask.csv"));
     for (out, extra) in [(&a, vec!["--weights", s(&w)]), (&b, vec![])] {
-        let mut args = vec![
-            "mean",
-            "--covs",
-            &covs,
-            "--mask",
-            &mask,
-            "--out",
-            s(out),
-        ];
+        let mut args = vec!["mean", "--covs", &covs, "--mask", &mask, "--out", s(out)];
         args.extend(extra);
         let (code, _, err) = lacuna(&args);
         assert_eq!(code, 0, "{err}");
@@ -433,5 +425,80 @@ fn extract_mask_columns_are_matched_by_name() {
             header[0]
         );
         assert!(cells[1..].iter().all(|&c| c == "1"));
+    }
+}
+
+fn edf(name: &str) -> String {
+    format!(
+        "{}/tests/reference/fixtures/edf/{name}",
+        env!("CARGO_MANIFEST_DIR")
+    )
+}
+
+// Broken copies of a pyedflib-written EDF+ (tests/reference/make_hostile_edf.py,
+// pyedflib 0.1.38): each defect is refused with the field or byte named, the valid
+// original reads, trailing bytes only warn, and --skip-annotations reads past a bad
+// annotation signal when events come from elsewhere.
+#[test]
+fn malformed_edf_files_are_refused_with_the_place_named() {
+    let d = Dir::new("edf");
+    let run = |file: &str, extra: &[&str]| {
+        let out = d.path(&format!("t-{}", file.replace('.', "-")));
+        let path = edf(file);
+        let mut args = vec![
+            "extract",
+            path.as_str(),
+            "--window",
+            "1",
+            "--no-detect",
+            "--out",
+            s(&out),
+        ];
+        args.extend_from_slice(extra);
+        let (code, _, err) = lacuna(&args);
+        (code, err, out)
+    };
+    let (code, err, _) = run("valid.edf", &[]);
+    assert_eq!(code, 0, "{err}");
+    for (file, needle) in [
+        ("record_size_mismatch.edf", "samples-per-record"),
+        ("unterminated_annotation.edf", "not terminated"),
+        ("garbage_annotation.edf", "not zero padding"),
+        ("unsigned_onset.edf", "not a signed number"),
+        ("huge_onset.edf", "out of range"),
+    ] {
+        let (code, err, out) = run(file, &[]);
+        assert_eq!(code, 3, "{file}: {err}");
+        assert!(err.contains(needle), "{file}: {err}");
+        no_panic(&err);
+        assert!(!out.exists(), "{file}: output written");
+    }
+    let (code, err, _) = run("trailing_bytes.edf", &[]);
+    assert_eq!(code, 0, "{err}");
+    assert!(err.contains("7 bytes after the last"), "{err}");
+    let (code, err, _) = run("garbage_annotation.edf", &["--skip-annotations"]);
+    assert_eq!(code, 0, "{err}");
+}
+
+// A real file whose first data record starts 0.3945312 s after the header's start
+// time (pyEDFlib 0.1.42's test_subsecond.edf, fetched by make_hostile_edf.py):
+// annotation onsets must count from the first sample, as pyedflib 0.1.38 reports
+// them (subsecond.json), so the epochs are not cut 50 samples late.
+#[test]
+fn subsecond_start_is_honoured() {
+    let info: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(edf("subsecond.json")).unwrap()).unwrap();
+    let mut f = lacuna::ingest::edf::EdfFile::open(std::path::Path::new(&edf(
+        "pyedflib_test_subsecond.edf",
+    )))
+    .unwrap();
+    let scan = f.scan_annotations().unwrap().unwrap();
+    assert!((scan.first_record_onset - 0.3945312).abs() < 1e-9);
+    let want = info["annotations"].as_array().unwrap();
+    assert_eq!(scan.events.len(), want.len());
+    for (e, w) in scan.events.iter().zip(want) {
+        assert_eq!(e.label, w["label"].as_str().unwrap());
+        let o = w["onset"].as_f64().unwrap();
+        assert!((e.onset - o).abs() < 1e-6, "{} vs pyedflib {o}", e.onset);
     }
 }

@@ -75,6 +75,11 @@ pub struct ExtractArgs {
     /// that replaces automatic detection.
     #[arg(long, value_name = "MASK")]
     mask: Option<PathBuf>,
+    /// Do not read the annotation signal of EDF+/BDF+ files (it is otherwise
+    /// checked in full, and a malformed one is refused); give the events
+    /// with --events or use --window.
+    #[arg(long)]
+    skip_annotations: bool,
     /// Turn automatic detection off: only non-finite samples and --bad count.
     #[arg(long)]
     no_detect: bool,
@@ -250,10 +255,21 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
                 (Box::new(read_signal_csv(path, rate)?), Vec::new())
             } else {
                 let mut f = EdfFile::open(path)?;
-                // Annotations are the events only when no events file or
-                // fixed windows were asked for.
-                let ann = if a.events.is_empty() && a.window.is_none() {
+                if !a.quiet {
+                    for w in &f.header.warnings {
+                        eprintln!("warning: {}: {w}", path.display());
+                    }
+                }
+                // The annotation signal of every EDF+/BDF+ file is checked
+                // (unless skipped); annotations are the events only when no
+                // events file or fixed windows were asked for.
+                let scanned = if a.skip_annotations {
+                    Vec::new()
+                } else {
                     f.annotations()?
+                };
+                let ann = if a.events.is_empty() && a.window.is_none() {
+                    scanned
                 } else {
                     Vec::new()
                 };

@@ -86,6 +86,8 @@ pub struct EdfHeader {
     pub n_records: usize,
     pub record_seconds: f64,
     pub signals: Vec<SignalHeader>,
+    /// Oddities that do not stop reading (record count −1, trailing bytes).
+    pub warnings: Vec<String>,
 }
 
 impl EdfHeader {
@@ -261,13 +263,28 @@ impl EdfHeader {
             n_records: 0,
             record_seconds,
             signals,
+            warnings: Vec::new(),
         };
         let record_bytes = header.record_bytes() as u64;
         let data_bytes = file_len - expected;
         let available = data_bytes / record_bytes;
         header.n_records = if n_records == -1 {
             // Allowed while recording; the file length decides.
+            header.warnings.push(format!(
+                "the header's record count is -1 (file still being written?); {available} records counted from the file size"
+            ));
             available as usize
+        } else if n_records > 0
+            && data_bytes > n_records as u64 * record_bytes
+            && data_bytes.is_multiple_of(n_records as u64)
+            && data_bytes / n_records as u64 != record_bytes
+        {
+            // The data are whole records of another size: the
+            // samples-per-record fields disagree with what was written.
+            return Err(fail(format!(
+                "the samples-per-record fields (header bytes 256 + 216·ns onwards) add up to {record_bytes} bytes per record, but the {data_bytes} data bytes are {n_records} records of {} bytes: a samples-per-record field is wrong; reading on would shift every channel",
+                data_bytes / n_records as u64
+            )));
         } else if n_records < 0 {
             return Err(fail(format!(
                 "the header declares {n_records} data records"
@@ -281,6 +298,13 @@ impl EdfHeader {
         };
         if header.n_records == 0 {
             return Err(fail("the file holds no data records".into()));
+        }
+        let extra = data_bytes - header.n_records as u64 * record_bytes;
+        if extra > 0 {
+            header.warnings.push(format!(
+                "{extra} bytes after the last of {} data records were ignored",
+                header.n_records
+            ));
         }
         Ok(header)
     }
@@ -415,16 +439,28 @@ impl EdfFile {
         }
     }
 
-    /// All EDF+/BDF+ annotations (not the time-keeping entries) as events.
-    pub fn annotations(&mut self) -> Result<Vec<Event>> {
+    /// Reads and checks the annotation signal of every data record (EDF+/BDF+
+    /// files; `None` for plain EDF/BDF). Refuses malformed TALs naming the
+    /// record and byte offset. Event onsets are returned relative to the
+    /// first sample of the data (the first record's time-keeping onset is
+    /// subtracted), so a recording whose first record starts at +0.3945 s
+    /// cuts its epochs where the annotations say.
+    pub fn scan_annotations(&mut self) -> Result<Option<AnnotationScan>> {
         let Some(k) = self.header.signals.iter().position(|s| s.is_annotation()) else {
-            return Ok(Vec::new());
+            return Ok(None);
         };
         let base = self.header.signal_offset(k);
         let len = self.header.signals[k].samples_per_record * self.header.variant.sample_bytes();
         // Only the annotation signal's bytes of each record are read.
         let mut bytes = vec![0u8; len];
         let mut events = Vec::new();
+        let mut first_record_onset = None;
+        let fail = |r: usize, message: String| LacunaError::Format {
+            path: self.path.clone(),
+            message: format!(
+                "data record {r}, annotation signal: {message}; fix the file or pass --skip-annotations to ignore the annotation signal"
+            ),
+        };
         for r in 0..self.header.n_records {
             let offset = self.header.header_bytes as u64
                 + r as u64 * self.record_buf.len() as u64
@@ -436,50 +472,138 @@ impl EdfFile {
                     path: self.path.clone(),
                     source,
                 })?;
-            parse_tals(&bytes, &mut events).map_err(|message| LacunaError::Format {
-                path: self.path.clone(),
-                message: format!("data record {r}: annotation signal: {message}"),
-            })?;
+            let keeping = parse_tals_strict(&bytes, &mut events).map_err(|m| fail(r, m))?;
+            match first_record_onset {
+                None => first_record_onset = Some(keeping),
+                Some(t0) => {
+                    let expect = t0 + r as f64 * self.header.record_seconds;
+                    if (keeping - expect).abs() > 1e-6 * self.header.record_seconds.max(1.0) {
+                        return Err(fail(
+                            r,
+                            format!(
+                                "the record starts at {keeping} s, not {expect} s: the recording has gaps (EDF+D), which lacuna does not read"
+                            ),
+                        ));
+                    }
+                }
+            }
         }
-        Ok(events)
+        let t0 = first_record_onset.unwrap_or(0.0);
+        for e in &mut events {
+            e.onset -= t0;
+        }
+        Ok(Some(AnnotationScan {
+            events,
+            first_record_onset: t0,
+        }))
+    }
+
+    /// All EDF+/BDF+ annotations (not the time-keeping entries) as events,
+    /// onsets relative to the first sample (see [`EdfFile::scan_annotations`]).
+    pub fn annotations(&mut self) -> Result<Vec<Event>> {
+        Ok(self
+            .scan_annotations()?
+            .map(|s| s.events)
+            .unwrap_or_default())
     }
 }
 
-/// Parses the TALs of one record's annotation bytes:
-/// `+onset[\x15duration]\x14text\x14…\x00`, zero padding after the last.
-fn parse_tals(bytes: &[u8], events: &mut Vec<Event>) -> std::result::Result<(), String> {
-    for tal in bytes.split(|&b| b == 0).filter(|t| !t.is_empty()) {
-        let mut parts = tal.split(|&b| b == 0x14);
-        let stamp = parts.next().unwrap_or(&[]);
-        let stamp = String::from_utf8_lossy(stamp);
-        let (onset, duration) = match stamp.split_once('\u{15}') {
-            Some((o, d)) => (o.to_string(), Some(d.to_string())),
-            None => (stamp.to_string(), None),
+/// What the annotation signal of an EDF+/BDF+ file holds.
+#[derive(Debug, Clone)]
+pub struct AnnotationScan {
+    /// Annotations as events, onsets relative to the first sample.
+    pub events: Vec<Event>,
+    /// Time-keeping onset of the first data record, seconds after the
+    /// header's start time.
+    pub first_record_onset: f64,
+}
+
+/// Parses one record's annotation bytes strictly (EDF+ specification §2.2):
+/// TALs `+onset[\x15duration]\x14text\x14…\x14\x00`, the first one the
+/// record's time-keeping TAL (empty text), then only zero padding. Returns
+/// the time-keeping onset; refuses anything else naming the byte offset.
+fn parse_tals_strict(bytes: &[u8], events: &mut Vec<Event>) -> std::result::Result<f64, String> {
+    let number = |t: &str, signed: bool| -> bool {
+        let body = if signed {
+            match t.strip_prefix(['+', '-']) {
+                Some(b) => b,
+                None => return false,
+            }
+        } else {
+            t
         };
-        if !(onset.starts_with('+') || onset.starts_with('-')) {
-            return Err(format!("TAL onset {onset:?} does not start with + or -"));
+        let mut parts = body.splitn(2, '.');
+        let int = parts.next().unwrap_or("");
+        let frac = parts.next();
+        !int.is_empty()
+            && int.bytes().all(|b| b.is_ascii_digit())
+            && frac.is_none_or(|f| f.bytes().all(|b| b.is_ascii_digit()))
+    };
+    let mut pos = 0;
+    let mut keeping = None;
+    while pos < bytes.len() && bytes[pos] != 0 {
+        let Some(end) = bytes[pos..].windows(2).position(|w| w == [0x14, 0]) else {
+            return Err(format!(
+                "the annotation starting at byte {pos} is not terminated by 0x14 0x00 before the end of the signal"
+            ));
+        };
+        let tal = &bytes[pos..pos + end + 1];
+        let text = std::str::from_utf8(tal)
+            .map_err(|_| format!("the annotation at byte {pos} is not UTF-8 text"))?;
+        let mut fields = text.split('\u{14}');
+        let stamp = fields.next().unwrap_or("");
+        let (onset, duration) = match stamp.split_once('\u{15}') {
+            Some((o, d)) => (o, Some(d)),
+            None => (stamp, None),
+        };
+        if !number(onset, true) {
+            return Err(format!(
+                "the onset {onset:?} at byte {pos} is not a signed number (+seconds or -seconds)"
+            ));
         }
         let onset_s: f64 = onset
             .parse()
-            .map_err(|_| format!("TAL onset {onset:?} is not a number"))?;
-        let duration_s: f64 = match duration {
-            Some(d) if !d.is_empty() => d
-                .parse()
-                .map_err(|_| format!("TAL duration {d:?} is not a number"))?,
-            _ => 0.0,
+            .map_err(|_| format!("onset {onset:?} at byte {pos}"))?;
+        let duration_s = match duration {
+            Some(d) if number(d, false) => d.parse().unwrap_or(0.0),
+            Some(d) => {
+                return Err(format!("the duration {d:?} at byte {pos} is not a number"));
+            }
+            None => 0.0,
         };
-        for text in parts {
-            let label = String::from_utf8_lossy(text).trim().to_string();
+        if !onset_s.is_finite() || onset_s.abs() > 1e9 {
+            return Err(format!("the onset {onset} at byte {pos} is out of range"));
+        }
+        let texts: Vec<&str> = fields.collect();
+        if keeping.is_none() {
+            // The first TAL of a record keeps time: its first text is empty.
+            if texts.first().is_none_or(|t| !t.is_empty()) {
+                return Err(format!(
+                    "the first annotation (byte {pos}) is not the record's time-keeping annotation (+onset followed by 0x14 0x14)"
+                ));
+            }
+            keeping = Some(onset_s);
+        }
+        for label in texts {
+            let label = label.trim();
             if !label.is_empty() {
                 events.push(Event {
                     onset: onset_s,
                     duration: duration_s,
-                    label,
+                    label: label.to_string(),
                 });
             }
         }
+        pos += end + 2;
     }
-    Ok(())
+    if let Some(k) = bytes[pos..].iter().position(|&b| b != 0) {
+        return Err(format!(
+            "byte {} after the last annotation is {:#04x}, not zero padding",
+            pos + k,
+            bytes[pos + k]
+        ));
+    }
+    keeping.ok_or_else(|| "the record has no time-keeping annotation".to_string())
 }
 
 impl SignalSource for EdfFile {
