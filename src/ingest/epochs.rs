@@ -85,6 +85,17 @@ pub fn plan_epochs(source: &dyn SignalSource, windowing: &Windowing) -> Result<V
                     source.name()
                 )));
             }
+            // Work is bounded by the recording: the epochs may read it at
+            // most 64 times over (heavily overlapping events), which keeps
+            // time and memory in proportion to the input.
+            if events.len() as f64 * len as f64 > 64.0 * n as f64 {
+                return Err(LacunaError::Unsupported(format!(
+                    "{}: {} events of {len} samples would read the {n}-sample recording {:.0} times over (at most 64); check the events file (onsets in seconds?) and --length",
+                    source.name(),
+                    events.len(),
+                    events.len() as f64 * len as f64 / n as f64
+                )));
+            }
             let mut out = Vec::new();
             let mut outside = Vec::new();
             for (k, e) in events.iter().enumerate() {

@@ -133,6 +133,24 @@ impl Extraction {
             labels.push(info.label.clone().unwrap_or_default());
             sessions.push(info.session.clone());
         }
+        if trials.is_empty() {
+            // Say which rules masked what, and how to loosen them.
+            let mut by_reason: Vec<(&'static str, usize)> = Vec::new();
+            for m in &self.masked {
+                let r = m.reason.name();
+                match by_reason.iter_mut().find(|(n, _)| *n == r) {
+                    Some(x) => x.1 += 1,
+                    None => by_reason.push((r, 1)),
+                }
+            }
+            let counts: Vec<String> = by_reason.iter().map(|(r, n)| format!("{r} {n}")).collect();
+            return Err(crate::LacunaError::Unsupported(format!(
+                "every channel of all {} epochs was masked ({} cells: {}), so no trial is left. Loosen the rules (--z-threshold, --min-correlation, --flat-ratio, --rail-fraction), turn detection off with --no-detect, or look at the epochs with --mask-report",
+                self.epochs.len(),
+                self.masked.len(),
+                if counts.is_empty() { "none recorded".into() } else { counts.join(", ") }
+            )));
+        }
         let mut set = TrialSet::new(self.channels.clone(), trials, None, "extracted epochs")?;
         if labels.iter().any(|l| !l.is_empty()) {
             set.labels = Some(labels);

@@ -53,6 +53,9 @@ pub struct TrialSet {
     ranks: Vec<usize>,
 }
 
+/// Largest magnitude accepted in a block: products of two entries stay finite.
+pub const MAX_ENTRY: f64 = 1e150;
+
 /// The rank rule: eigenvalues above `k · ε · λ_max` count (numpy's
 /// `matrix_rank` default; k the block size). A block whose smallest
 /// eigenvalue is below `−100 ×` that tolerance is indefinite beyond rounding.
@@ -140,6 +143,21 @@ impl TrialSet {
                 continue;
             }
             let k = t.observed.len();
+            // Magnitudes whose products overflow cannot be computed with;
+            // say so instead of blaming rank or finiteness.
+            if let Some(idx) = t.block.iter().position(|v| v.is_finite() && v.abs() > MAX_ENTRY) {
+                let (r, c) = (idx % k, idx / k);
+                problems.push(TrialProblem {
+                    trial: Some(i),
+                    channel: Some(name(t.observed[r])),
+                    message: format!(
+                        "value {:e} (with channel {}) is beyond the magnitude lacuna computes with (|x| ≤ 1e150); rescale the data (e.g. to µV² or V²)",
+                        t.block[(r, c)],
+                        name(t.observed[c])
+                    ),
+                });
+                continue;
+            }
             match check_spd(&t.block) {
                 Ok(()) => {
                     // Cholesky succeeds on some exactly singular blocks (the
