@@ -148,7 +148,11 @@ impl Extraction {
                 "every channel of all {} epochs was masked ({} cells: {}), so no trial is left. Loosen the rules (--z-threshold, --min-correlation, --flat-ratio, --rail-fraction), turn detection off with --no-detect, or look at the epochs with --mask-report",
                 self.epochs.len(),
                 self.masked.len(),
-                if counts.is_empty() { "none recorded".into() } else { counts.join(", ") }
+                if counts.is_empty() {
+                    "none recorded".into()
+                } else {
+                    counts.join(", ")
+                }
             )));
         }
         let mut set = TrialSet::new(self.channels.clone(), trials, None, "extracted epochs")?;

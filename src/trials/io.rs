@@ -249,10 +249,16 @@ pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
         ));
     }
     // Checked here so that the message names the weights file.
-    if let Some((i, v)) = w.iter().enumerate().find(|(_, v)| !(v.is_finite() && **v >= 0.0)) {
+    if let Some((i, v)) = w
+        .iter()
+        .enumerate()
+        .find(|(_, v)| !(v.is_finite() && **v >= 0.0))
+    {
         return Err(format_err(
             path,
-            format!("trial {i}: weight {v} is negative or not finite; weights must be finite and ≥ 0"),
+            format!(
+                "trial {i}: weight {v} is negative or not finite; weights must be finite and ≥ 0"
+            ),
         ));
     }
     if w.iter().all(|&v| v == 0.0) {

@@ -145,7 +145,11 @@ impl TrialSet {
             let k = t.observed.len();
             // Magnitudes whose products overflow cannot be computed with;
             // say so instead of blaming rank or finiteness.
-            if let Some(idx) = t.block.iter().position(|v| v.is_finite() && v.abs() > MAX_ENTRY) {
+            if let Some(idx) = t
+                .block
+                .iter()
+                .position(|v| v.is_finite() && v.abs() > MAX_ENTRY)
+            {
                 let (r, c) = (idx % k, idx / k);
                 problems.push(TrialProblem {
                     trial: Some(i),
