@@ -4,26 +4,11 @@ mod common;
 
 use common::{Dir, lacuna, s};
 
-use std::path::{Path, PathBuf};
+use std::path::Path;
 
 use lacuna::simulate::rng::Rng;
-use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
-use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
+use lacuna::simulate::stacks::{random_spd, sample_covariance};
 use lacuna::trials::npy::{encode_f64, encode_u8};
-
-/// A small masked data set written as NaN-encoded stack + mask.
-fn write_set(d: &Dir, n: usize, p: usize, seed: u64) -> (PathBuf, PathBuf) {
-    let mut rng = Rng::new(seed);
-    let sigma = random_spd(p, 20.0, &mut rng);
-    let full: Vec<_> = (0..n)
-        .map(|_| sample_covariance(&sigma, 40, &mut rng))
-        .collect();
-    let set = masked_set(&full, random_dropout(n, p, 0.3, 2, &mut rng));
-    (
-        d.write("covs.npy", &encode_stack_with_nan(&set)),
-        d.write("mask.npy", &encode_mask(&set)),
-    )
-}
 
 /// Complete stack as raw data for hand-made corruptions.
 fn complete_stack(n: usize, p: usize) -> Vec<f64> {
@@ -54,7 +39,7 @@ fn expect_refusal(args: &[&str], out: &Path, needles: &[&str]) {
 #[test]
 fn mean_writes_npy_and_report_with_contract_fields() {
     let d = Dir::new("ok");
-    let (covs, mask) = write_set(&d, 60, 6, 1);
+    let (covs, mask) = common::write_masked_set(&d, 60, 6, 1);
     let (out, rep) = (d.path("mean.npy"), d.path("r.json"));
     let (code, _, err) = lacuna(&[
         "mean",
@@ -92,7 +77,7 @@ fn mean_writes_npy_and_report_with_contract_fields() {
 #[test]
 fn infers_mask_from_nan_and_writes_csv() {
     let d = Dir::new("csv");
-    let (covs, _) = write_set(&d, 40, 5, 2);
+    let (covs, _) = common::write_masked_set(&d, 40, 5, 2);
     let out = d.path("mean.csv");
     let (code, _, err) = lacuna(&["mean", "--covs", s(&covs), "--out", s(&out), "--quiet"]);
     assert_eq!(code, 0, "{err}");
@@ -132,7 +117,7 @@ fn every_full_data_scheme_runs() {
 #[test]
 fn output_does_not_depend_on_threads() {
     let d = Dir::new("threads");
-    let (covs, mask) = write_set(&d, 200, 8, 3);
+    let (covs, mask) = common::write_masked_set(&d, 200, 8, 3);
     let (a, b) = (d.path("a.npy"), d.path("b.npy"));
     assert_eq!(
         lacuna(&[
@@ -422,7 +407,7 @@ fn unobserved_channel_refused_unless_dropped() {
 #[test]
 fn full_data_scheme_on_masked_data_is_refused() {
     let d = Dir::new("fullmask");
-    let (covs, mask) = write_set(&d, 30, 5, 4);
+    let (covs, mask) = common::write_masked_set(&d, 30, 5, 4);
     let out = d.path("m.npy");
     expect_refusal(
         &[
@@ -455,7 +440,7 @@ fn usage_errors_exit_2() {
 #[test]
 fn non_convergence_exits_4_and_still_writes() {
     let d = Dir::new("maxiter");
-    let (covs, mask) = write_set(&d, 50, 6, 6);
+    let (covs, mask) = common::write_masked_set(&d, 50, 6, 6);
     let (out, rep) = (d.path("m.npy"), d.path("r.json"));
     let (code, _, err) = lacuna(&[
         "mean",

@@ -8,7 +8,7 @@ mod common;
 use common::{Dir, lacuna, s};
 
 use lacuna::simulate::rng::Rng;
-use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
+use lacuna::simulate::stacks::{masked_set, random_spd, sample_covariance};
 use lacuna::trials::io::{encode_mask, encode_stack_with_nan};
 use lacuna::trials::npy::encode_f64;
 
@@ -61,19 +61,6 @@ fn inconsistent_cycle_exits_4_with_reason() {
         lacuna::spd::kernels::cholesky(&m).is_some(),
         "written mean must be PD"
     );
-}
-
-fn small_set(d: &Dir, n: usize, p: usize, seed: u64) -> (std::path::PathBuf, std::path::PathBuf) {
-    let mut rng = Rng::new(seed);
-    let sigma = random_spd(p, 20.0, &mut rng);
-    let full: Vec<_> = (0..n)
-        .map(|_| sample_covariance(&sigma, 40, &mut rng))
-        .collect();
-    let set = masked_set(&full, random_dropout(n, p, 0.3, 2, &mut rng));
-    (
-        d.write("covs.npy", &encode_stack_with_nan(&set)),
-        d.write("mask.npy", &encode_mask(&set)),
-    )
 }
 
 // Common practice, no source: entries a scheme did not estimate are written as
@@ -130,7 +117,7 @@ fn common_channels_leaves_unestimated_entries_empty() {
 #[test]
 fn compare_refuses_unknown_scheme_names() {
     let d = Dir::new("typo");
-    let (covs, mask) = small_set(&d, 30, 5, 4);
+    let (covs, mask) = common::write_masked_set(&d, 30, 5, 4);
     let out = d.path("cmp");
     let (code, _, err) = lacuna(&[
         "compare",
@@ -170,7 +157,7 @@ fn compare_refuses_unknown_scheme_names() {
 #[test]
 fn compare_refuses_epochs_of_another_trial_set() {
     let d = Dir::new("epochs");
-    let (covs, mask) = small_set(&d, 30, 5, 5);
+    let (covs, mask) = common::write_masked_set(&d, 30, 5, 5);
     let names: Vec<String> = (0..5).map(|c| format!("ch{c}")).collect();
     let epochs: Vec<serde_json::Value> = (0..12)
         .map(|e| serde_json::json!({"epoch": e, "trial": e, "masked": []}))

@@ -398,7 +398,7 @@ pub fn scale_corrected(set: &TrialSet, n: f64) -> Result<(TrialSet, String)> {
     use crate::spd::wishart::log_scale_bias;
     let mut lo = f64::INFINITY;
     let mut hi = f64::NEG_INFINITY;
-    let mut trials = Vec::with_capacity(set.len());
+    let mut factors = Vec::with_capacity(set.len());
     for (i, t) in set.trials().iter().enumerate() {
         let k = t.observed.len();
         let c = log_scale_bias(k, n).ok_or_else(|| {
@@ -409,19 +409,9 @@ pub fn scale_corrected(set: &TrialSet, n: f64) -> Result<(TrialSet, String)> {
         let f = (-c).exp();
         lo = lo.min(f);
         hi = hi.max(f);
-        trials.push(crate::trials::Trial {
-            observed: t.observed.clone(),
-            block: &t.block * f,
-        });
+        factors.push(f);
     }
-    let mut out = TrialSet::new(
-        set.channels().to_vec(),
-        trials,
-        Some(set.weights().to_vec()),
-        "scale-corrected trials",
-    )?;
-    out.labels = set.labels.clone();
-    out.sessions = set.sessions.clone();
+    let out = set.map_blocks("scale-corrected trials", |i, t| &t.block * factors[i])?;
     let range = if (hi - lo).abs() <= 1e-12 * hi {
         format!("{lo:.4}")
     } else {

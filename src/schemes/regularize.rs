@@ -23,7 +23,7 @@
 
 use crate::error::{LacunaError, Result};
 use crate::spd::Mat;
-use crate::trials::{Trial, TrialSet};
+use crate::trials::TrialSet;
 
 /// A per-block regulariser.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
@@ -123,26 +123,12 @@ impl Regularizer {
     /// Regularises every trial of `set`; returns the new set and a note.
     pub fn apply(&self, set: &TrialSet) -> Result<(TrialSet, String)> {
         self.check().map_err(LacunaError::InvalidOption)?;
-        let mut intensities = Vec::with_capacity(set.len());
-        let trials: Vec<Trial> = set
+        let intensities: Vec<f64> = set
             .trials()
             .iter()
-            .map(|t| {
-                intensities.push(self.weights(&t.block).1);
-                Trial {
-                    observed: t.observed.clone(),
-                    block: self.apply_block(&t.block),
-                }
-            })
+            .map(|t| self.weights(&t.block).1)
             .collect();
-        let mut out = TrialSet::new(
-            set.channels().to_vec(),
-            trials,
-            Some(set.weights().to_vec()),
-            "regularised trials",
-        )?;
-        out.labels = set.labels.clone();
-        out.sessions = set.sessions.clone();
+        let out = set.map_blocks("regularised trials", |_, t| self.apply_block(&t.block))?;
         let lo = intensities.iter().copied().fold(f64::INFINITY, f64::min);
         let hi = intensities.iter().copied().fold(0.0f64, f64::max);
         let note = match self {

@@ -454,6 +454,33 @@ impl TrialSet {
         Ok(out)
     }
 
+    /// The same trials with each block replaced by `f(i, trial)` (same
+    /// channels, weights, labels and sessions), validated again.
+    pub fn map_blocks(
+        &self,
+        source_name: &str,
+        f: impl Fn(usize, &Trial) -> Mat,
+    ) -> Result<TrialSet> {
+        let trials = self
+            .trials
+            .iter()
+            .enumerate()
+            .map(|(i, t)| Trial {
+                observed: t.observed.clone(),
+                block: f(i, t),
+            })
+            .collect();
+        let mut out = TrialSet::new(
+            self.channels.clone(),
+            trials,
+            Some(self.weights.clone()),
+            source_name,
+        )?;
+        out.labels = self.labels.clone();
+        out.sessions = self.sessions.clone();
+        Ok(out)
+    }
+
     /// Builds a set of complete trials from full matrices (all channels observed).
     pub fn from_full(
         channels: Vec<String>,

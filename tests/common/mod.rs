@@ -108,3 +108,25 @@ pub fn extract_demo(out: &std::path::Path, extra: &[&str]) -> (i32, String, Stri
     args.extend_from_slice(extra);
     lacuna(&args)
 }
+
+/// A small masked data set (population of condition 20, windows of 40
+/// samples, 30% of trials losing up to 2 channels) written as a NaN-encoded
+/// stack `covs.npy` and `mask.npy` in `d`.
+pub fn write_masked_set(
+    d: &Dir,
+    n: usize,
+    p: usize,
+    seed: u64,
+) -> (std::path::PathBuf, std::path::PathBuf) {
+    use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
+    let mut rng = Rng::new(seed);
+    let sigma = random_spd(p, 20.0, &mut rng);
+    let full: Vec<_> = (0..n)
+        .map(|_| sample_covariance(&sigma, 40, &mut rng))
+        .collect();
+    let set = masked_set(&full, random_dropout(n, p, 0.3, 2, &mut rng));
+    (
+        d.write("covs.npy", &lacuna::trials::io::encode_stack_with_nan(&set)),
+        d.write("mask.npy", &lacuna::trials::io::encode_mask(&set)),
+    )
+}
