@@ -139,3 +139,100 @@ fn detection_with_mixed_faults_including_nan() {
     assert!(precision >= 0.95 && recall >= 0.95, "{detail}");
     assert!(out.masked.iter().any(|m| m.reason.name() == "non-finite"));
 }
+
+// A fault must not change the verdict on its neighbours (common practice, no
+// source): on a clean simulated session cut into back-to-back 2-s windows, rail one
+// channel (±range) for all of one window, and separately flatten it for one
+// window; every other window's verdict on every channel must be what it was
+// without the fault. Can fail: with the detection signals filtered across window
+// boundaries (the previous pipeline), the railed step rang into the next window and
+// masked it (checked: "window 23, channel 5 changed verdict").
+#[test]
+fn a_fault_leaves_its_neighbours_verdicts_unchanged() {
+    use lacuna::ingest::InMemorySource;
+    use lacuna::ingest::epochs::{Windowing, plan_epochs};
+    use lacuna::ingest::pipeline::SessionInput;
+    let params = RecordingParams {
+        dropout_scale: 0.0,
+        sessions: 1,
+        seed: 5,
+        ..RecordingParams::default()
+    };
+    let study = simulate_recording(&params).unwrap();
+    let clean = study.sessions[0].signals.clone();
+    let fs = params.rate as f64;
+    let len = (2.0 * fs) as usize;
+    let run = |signals: Vec<Vec<f64>>| {
+        let source = InMemorySource {
+            name: "s".into(),
+            channels: study.channels.clone(),
+            rate: fs,
+            data: std::sync::Arc::new(signals),
+            rails: Some(vec![
+                (-params.range_uv, params.range_uv);
+                study.channels.len()
+            ]),
+        };
+        let epochs = plan_epochs(
+            &source,
+            &Windowing::Fixed {
+                length: 2.0,
+                step: 2.0,
+            },
+        )
+        .unwrap();
+        let input = SessionInput {
+            session: "s".into(),
+            source: Box::new(source),
+            epochs,
+            isolated: false,
+        };
+        let opts = ExtractOptions {
+            band: params.band,
+            ..ExtractOptions::default()
+        };
+        extract(vec![input], &opts, &|_, _| {}).unwrap()
+    };
+    let base = run(clean.clone());
+    let p = study.channels.len();
+    let n_epochs = base.epochs.len();
+    let (c, e) = (5, n_epochs / 2);
+    for fault in ["railed", "flat"] {
+        let mut damaged = clean.clone();
+        for v in &mut damaged[c][e * len..(e + 1) * len] {
+            *v = if fault == "railed" {
+                params.range_uv
+            } else {
+                0.0
+            };
+        }
+        let out = run(damaged);
+        assert!(
+            !out.mask[e * p + c],
+            "{fault}: the faulty window itself is masked"
+        );
+        for k in (0..n_epochs).filter(|&k| k != e) {
+            for ch in 0..p {
+                assert_eq!(
+                    out.mask[k * p + ch],
+                    base.mask[k * p + ch],
+                    "{fault}: window {k}, channel {ch} changed verdict"
+                );
+            }
+        }
+        // The neighbours' statistics on the faulty channel are untouched
+        // (the session median of the flat rule may move, the window's own
+        // robust SD may not).
+        for k in [e - 1, e + 1] {
+            let before = base
+                .masked
+                .iter()
+                .find(|m| m.epoch == k && m.channel == study.channels[c]);
+            let after = out
+                .masked
+                .iter()
+                .find(|m| m.epoch == k && m.channel == study.channels[c]);
+            assert_eq!(before.is_some(), after.is_some(), "{fault}: neighbour {k}");
+        }
+    }
+}

@@ -356,10 +356,13 @@ fn plan_chunks(
 
 /// Filtered versions of one channel of a chunk.
 struct ChannelSignals {
-    /// High-passed detection signal.
-    detect: Vec<f64>,
-    /// Low-passed detection signal (when the rate allows).
-    low: Option<Vec<f64>>,
+    /// High-passed detection signal, one per epoch of the chunk, each
+    /// computed from that epoch's own samples only (its linear trend removed,
+    /// then filtered with its own padding): a fault in a neighbouring epoch
+    /// cannot ring into it.
+    detect: Vec<Vec<f64>>,
+    /// Low-passed detection signal per epoch (when the rate allows).
+    low: Option<Vec<Vec<f64>>>,
     /// The analysis signal (band-passed, or raw).
     analysis: Vec<f64>,
     /// Non-finite samples per epoch of the chunk, and rail fraction.
@@ -393,16 +396,19 @@ fn filter_channel(
         .collect();
     let x = fill_non_finite(raw);
     let mut work = Vec::new();
-    let mut detect = x.clone();
-    f.highpass.filtfilt(&mut detect, &mut work)?;
-    let low = match &f.lowpass {
-        Some(lp) => {
-            let mut l = detect.clone();
-            lp.filtfilt(&mut l, &mut work)?;
-            Some(l)
+    let mut detect = Vec::with_capacity(epochs.len());
+    let mut lows = Vec::with_capacity(epochs.len());
+    for &(s, l) in epochs {
+        let mut d = detrended(&x[s..s + l]);
+        f.highpass.filtfilt(&mut d, &mut work)?;
+        if let Some(lp) = &f.lowpass {
+            let mut lo = d.clone();
+            lp.filtfilt(&mut lo, &mut work)?;
+            lows.push(lo);
         }
-        None => None,
-    };
+        detect.push(d);
+    }
+    let low = f.lowpass.as_ref().map(|_| lows);
     let analysis = match &f.band {
         Some(b) => {
             let mut y = x;
@@ -418,6 +424,24 @@ fn filter_channel(
         non_finite,
         rail_fraction,
     })
+}
+
+/// A segment minus its least-squares straight line (its own trend).
+fn detrended(x: &[f64]) -> Vec<f64> {
+    let n = x.len() as f64;
+    let tm = (n - 1.0) / 2.0;
+    let xm = x.iter().sum::<f64>() / n;
+    let (mut sxy, mut sxx) = (0.0, 0.0);
+    for (i, &v) in x.iter().enumerate() {
+        let t = i as f64 - tm;
+        sxy += t * (v - xm);
+        sxx += t * t;
+    }
+    let slope = if sxx > 0.0 { sxy / sxx } else { 0.0 };
+    x.iter()
+        .enumerate()
+        .map(|(i, &v)| v - xm - slope * (i as f64 - tm))
+        .collect()
 }
 
 /// Non-finite samples replaced by linear interpolation between finite
@@ -527,9 +551,9 @@ fn measure_epoch(
     let mut stats: Vec<ChannelStats> = signals
         .iter()
         .map(|sig| {
-            let d = &sig.detect[s..s + len];
+            let d = &sig.detect[j][..];
             let noise_ratio = sig.low.as_ref().map(|l| {
-                let l = &l[s..s + len];
+                let l = &l[j][..];
                 let h: Vec<f64> = d.iter().zip(l).map(|(a, b)| a - b).collect();
                 let denom = mad(l, &mut scratch);
                 let num = mad(&h, &mut scratch);
@@ -564,7 +588,9 @@ fn measure_epoch(
         eligible.len(),
         eligible.iter().flat_map(|&c| {
             let sig = &signals[c];
-            sig.low.as_ref().unwrap_or(&sig.detect)[s..s + len]
+            sig.low
+                .as_ref()
+                .map_or(&sig.detect[j], |l| &l[j])
                 .iter()
                 .copied()
         }),
