@@ -145,7 +145,7 @@ fn npy_epochs_with_lost_samples() {
     let truth = std::fs::read_to_string(rec.join("truth-faults.csv")).unwrap();
     if truth.contains(",lost") {
         assert!(
-            summary["reasons"]["non-finite"].as_u64().unwrap() > 0,
+            summary["reasons"]["missing-samples"].as_u64().unwrap() > 0,
             "{summary}"
         );
     }

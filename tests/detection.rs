@@ -96,8 +96,8 @@ fn detection_recovers_the_default_scenario() {
         "masked {truth_masked} true cells; precision {precision:.3} recall {recall:.3}; {detail}; reasons {reasons:?}"
     );
     assert!(truth_masked > 0);
-    assert!(precision >= 0.95, "precision {precision}: {detail}");
-    assert!(recall >= 0.95, "recall {recall}: {detail}");
+    assert!(precision >= 0.99, "precision {precision}: {detail}");
+    assert!(recall >= 0.99, "recall {recall}: {detail}");
     // The extracted set is a valid trial set with labels and sessions.
     let set = out.trial_set().unwrap();
     assert_eq!(set.len(), study.labels.len());
@@ -136,8 +136,12 @@ fn detection_with_mixed_faults_including_nan() {
     let out = extract(inputs, &opts, &|_, _| {}).unwrap();
     let (precision, recall, detail) = score(&study, &out.mask, study.channels.len());
     eprintln!("mixed: precision {precision:.3} recall {recall:.3}; {detail}");
-    assert!(precision >= 0.95 && recall >= 0.95, "{detail}");
-    assert!(out.masked.iter().any(|m| m.reason.name() == "non-finite"));
+    assert!(precision >= 0.99 && recall >= 0.99, "{detail}");
+    assert!(
+        out.masked
+            .iter()
+            .any(|m| m.reason.name() == "missing-samples")
+    );
 }
 
 // A fault must not change the verdict on its neighbours (common practice, no
@@ -234,5 +238,113 @@ fn a_fault_leaves_its_neighbours_verdicts_unchanged() {
                 .find(|m| m.epoch == k && m.channel == study.channels[c]);
             assert_eq!(before.is_some(), after.is_some(), "{fault}: neighbour {k}");
         }
+    }
+}
+
+/// Precision and recall of one detection setting on one simulated study.
+fn sweep_point(
+    params: &RecordingParams,
+    study: &SimulatedStudy,
+    detect: lacuna::ingest::detect::DetectOptions,
+) -> (f64, f64) {
+    let opts = ExtractOptions {
+        band: params.band,
+        detect,
+        ..ExtractOptions::default()
+    };
+    let out = extract(study.session_inputs(params).unwrap(), &opts, &|_, _| {}).unwrap();
+    let (p, r, _) = score(study, &out.mask, study.channels.len());
+    (p, r)
+}
+
+// The threshold sweep behind the defaults (docs/ingest.md, "Choosing the
+// thresholds"): each rule's threshold varied with the others at their defaults,
+// on four simulated studies (default faults, mixed faults with NaN, twice the
+// dropout rate, and a 512 Hz cap), precision and recall of masked cells against
+// the simulator's truth. Run with `cargo test --release --test detection -- --ignored
+// --nocapture threshold_sweep`.
+#[test]
+#[ignore]
+fn threshold_sweep() {
+    use lacuna::ingest::detect::DetectOptions;
+    let studies: Vec<RecordingParams> = vec![
+        RecordingParams::default(),
+        RecordingParams {
+            nan_faults: true,
+            dropout_scale: 2.0,
+            seed: 77,
+            ..RecordingParams::default()
+        },
+        RecordingParams {
+            dropout_scale: 3.0,
+            seed: 91,
+            ..RecordingParams::default()
+        },
+        RecordingParams {
+            rate: 512,
+            seed: 13,
+            ..RecordingParams::default()
+        },
+    ];
+    let sims: Vec<(RecordingParams, SimulatedStudy)> = studies
+        .into_iter()
+        .map(|p| {
+            let s = simulate_recording(&p).unwrap();
+            (p, s)
+        })
+        .collect();
+    let base = DetectOptions::default();
+    let report = |name: &str, value: f64, d: DetectOptions| {
+        let pts: Vec<(f64, f64)> = sims
+            .iter()
+            .map(|(p, s)| sweep_point(p, s, d.clone()))
+            .collect();
+        let mp = pts.iter().map(|x| x.0).sum::<f64>() / pts.len() as f64;
+        let mr = pts.iter().map(|x| x.1).sum::<f64>() / pts.len() as f64;
+        let f1 = 2.0 * mp * mr / (mp + mr);
+        let worst = pts.iter().map(|x| x.0.min(x.1)).fold(1.0, f64::min);
+        println!("| {name} | {value} | {mp:.4} | {mr:.4} | {f1:.4} | {worst:.4} |");
+    };
+    println!("| threshold | value | mean precision | mean recall | F1 | worst of both |");
+    println!("|---|---|---|---|---|---|");
+    for z in [3.0, 3.5, 4.0, 4.5, 5.0, 6.0, 7.0, 8.0] {
+        report(
+            "z-threshold",
+            z,
+            DetectOptions {
+                z_threshold: z,
+                ..base.clone()
+            },
+        );
+    }
+    for c in [0.1, 0.2, 0.25, 0.3, 0.35, 0.4, 0.5, 0.6] {
+        report(
+            "min-correlation",
+            c,
+            DetectOptions {
+                min_correlation: c,
+                ..base.clone()
+            },
+        );
+    }
+    for f in [0.02, 0.05, 0.1, 0.15, 0.2, 0.3] {
+        report(
+            "flat-ratio",
+            f,
+            DetectOptions {
+                flat_relative: f,
+                ..base.clone()
+            },
+        );
+    }
+    for h in [30.0, 40.0, 45.0, 60.0] {
+        report(
+            "split (Hz)",
+            h,
+            DetectOptions {
+                noise_cut_hz: h,
+                ..base.clone()
+            },
+        );
     }
 }

@@ -119,8 +119,8 @@ fn report_is_well_formed_and_self_contained() {
     assert!(html.contains("Research software, not a medical device"));
     assert!(html.contains("@media print"));
     assert!(
-        html.contains("class=\"cell-code\">R</text>")
-            || html.contains("class=\"cell-code\">D</text>")
+        html.contains("class=\"cell-code\">S</text>")
+            || html.contains("class=\"cell-code\">A</text>")
     );
     assert!(html.contains("Recommended: airm-observed"));
 }

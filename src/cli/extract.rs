@@ -80,14 +80,14 @@ pub struct ExtractArgs {
     /// with --events or use --window.
     #[arg(long)]
     skip_annotations: bool,
-    /// Turn automatic detection off: only non-finite samples and --bad count.
+    /// Turn automatic detection off: only missing samples and --bad count.
     #[arg(long)]
     no_detect: bool,
-    /// Robust z-score beyond which deviation and high-frequency noise mask a channel (0.5–100).
-    #[arg(long, default_value_t = 5.0)]
+    /// Robust z-score beyond which amplitude-outlier and broadband-excess mask a channel (0.5–100).
+    #[arg(long, default_value_t = 6.0)]
     z_threshold: f64,
     /// Mask a channel whose largest |correlation| with the others is below this (0–1).
-    #[arg(long, default_value_t = 0.4)]
+    #[arg(long, default_value_t = 0.5)]
     min_correlation: f64,
     /// Mask a channel whose robust SD falls below this fraction of its session median (0–1).
     #[arg(long, default_value_t = 0.1)]

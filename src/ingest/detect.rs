@@ -1,31 +1,38 @@
 //! Dropout detection: for every epoch and channel, observed or not, and why.
 //!
+//! Each epoch is judged on its own samples (detrended and filtered per epoch,
+//! see ingest/pipeline.rs), so a fault cannot change a neighbour's verdict.
 //! Rules, in the order they are tried (the first that fires is the reason):
-//! 1. `non-finite`: any NaN or infinite sample (a lost sample).
-//! 2. `railed`: at least `rail_fraction` (5%) of the samples sit at the
+//! 1. `missing-samples`: any NaN or infinite sample.
+//! 2. `saturated`: at least `rail_fraction` of the samples sit at the
 //!    channel's digital minimum or maximum (the amplifier saturated); only
 //!    for formats that carry digital limits (EDF/BDF). Common practice, no source.
-//! 3. `flat`: robust SD of the high-passed signal at or below one digital
+//! 3. `no-signal`: robust SD of the high-passed signal at or below one digital
 //!    step (or exactly 0 without digital limits), or below `flat_relative`
-//!    (10%) of the channel's own median robust SD over the session's epochs
-//!    (a 20 dB drop). Common practice, no source.
-//! 4. `deviation`: robust z-score of the channel's robust SD among the
-//!    epoch's channels beyond `z_threshold` (5) in absolute value;
-//! 5. `high-frequency-noise`: robust z-score of the noisiness ratio
-//!    MAD(x − lowpass₅₀(x)) / MAD(lowpass₅₀(x)) beyond 5;
-//! 6. `uncorrelated`: maximum absolute correlation with any other channel
-//!    (on the 50 Hz low-passed signal) below `min_correlation` (0.4).
+//!    of the channel's own median robust SD over the session's epochs.
+//!    Common practice, no source.
+//! 4. `amplitude-outlier`: robust z-score of the channel's robust SD among
+//!    the epoch's channels beyond `z_threshold` in absolute value;
+//! 5. `broadband-excess`: robust z-score of the ratio
+//!    MAD(x − lowpass(x)) / MAD(lowpass(x)) (power above the split frequency
+//!    against power below it) beyond `z_threshold`;
+//! 6. `isolated`: largest absolute correlation with any other channel (on
+//!    the low-passed signal) below `min_correlation`.
 //!
-//!    Rules 4–6 are the criteria of the PREP pipeline (Bigdely-Shamlo,
-//!    Mullen, Kothe, Su & Robbins 2015, "The PREP pipeline: standardized
-//!    preprocessing for large-scale EEG analysis", Front. Neuroinform.),
-//!    applied per epoch rather than per recording, with robust SD =
-//!    0.7413 · IQR. Rules 4–6 compare a channel with the epoch's other
-//!    channels that passed rules 1–3.
+//!    Rules 4–6 use published robust statistics: the robust SD
+//!    0.7413 · IQR (the normal-consistent interquartile range), robust
+//!    z-scores from the median and that SD, the ratio of high- to
+//!    low-frequency amplitude, and the largest correlation with the other
+//!    channels — the usual criteria for bad EEG channels in the literature
+//!    on automated preprocessing (e.g. Bigdely-Shamlo et al. 2015, Front.
+//!    Neuroinform. 9). They compare a channel with the epoch's other
+//!    channels that passed rules 1–3. Thresholds are lacuna's own, chosen
+//!    from a sweep over simulated scenarios with known faults
+//!    (docs/ingest.md, "Choosing the thresholds").
 //! 7. `user`: the channel was marked bad by the user (or a user mask).
 //!
 //! All rules work on the high-passed (1 Hz) signal so slow drifts do not
-//! dominate, like PREP's own preparation step.
+//! dominate.
 
 use serde::{Deserialize, Serialize};
 
@@ -33,12 +40,12 @@ use serde::{Deserialize, Serialize};
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Hash, PartialOrd, Ord)]
 #[serde(rename_all = "kebab-case")]
 pub enum Reason {
-    NonFinite,
-    Railed,
-    Flat,
-    Deviation,
-    HighFrequencyNoise,
-    Uncorrelated,
+    MissingSamples,
+    Saturated,
+    NoSignal,
+    AmplitudeOutlier,
+    BroadbandExcess,
+    Isolated,
     User,
 }
 
@@ -46,23 +53,23 @@ impl Reason {
     /// The name used in files and messages.
     pub fn name(self) -> &'static str {
         match self {
-            Reason::NonFinite => "non-finite",
-            Reason::Railed => "railed",
-            Reason::Flat => "flat",
-            Reason::Deviation => "deviation",
-            Reason::HighFrequencyNoise => "high-frequency-noise",
-            Reason::Uncorrelated => "uncorrelated",
+            Reason::MissingSamples => "missing-samples",
+            Reason::Saturated => "saturated",
+            Reason::NoSignal => "no-signal",
+            Reason::AmplitudeOutlier => "amplitude-outlier",
+            Reason::BroadbandExcess => "broadband-excess",
+            Reason::Isolated => "isolated",
             Reason::User => "user",
         }
     }
     /// All reasons, in rule order.
     pub const ALL: [Reason; 7] = [
-        Reason::NonFinite,
-        Reason::Railed,
-        Reason::Flat,
-        Reason::Deviation,
-        Reason::HighFrequencyNoise,
-        Reason::Uncorrelated,
+        Reason::MissingSamples,
+        Reason::Saturated,
+        Reason::NoSignal,
+        Reason::AmplitudeOutlier,
+        Reason::BroadbandExcess,
+        Reason::Isolated,
         Reason::User,
     ];
 }
@@ -88,10 +95,11 @@ impl Default for DetectOptions {
             enabled: true,
             rail_fraction: 0.05,
             flat_relative: 0.1,
-            z_threshold: 5.0,
-            min_correlation: 0.4,
+            // Chosen from lacuna's threshold sweep (docs/ingest.md).
+            z_threshold: 6.0,
+            min_correlation: 0.5,
             highpass_hz: 1.0,
-            noise_cut_hz: 50.0,
+            noise_cut_hz: 40.0,
         }
     }
 }
@@ -165,16 +173,16 @@ pub fn robust_z(values: &[f64]) -> Vec<Option<f64>> {
 /// The hard (per-channel) rules 1–3 except the session-relative flat rule.
 pub fn hard_reason(s: &ChannelStats, opts: &DetectOptions, flat_floor: f64) -> Option<Reason> {
     if s.non_finite > 0 {
-        return Some(Reason::NonFinite);
+        return Some(Reason::MissingSamples);
     }
     if !opts.enabled {
         return None;
     }
     if s.rail_fraction >= opts.rail_fraction {
-        return Some(Reason::Railed);
+        return Some(Reason::Saturated);
     }
     if s.robust_sd <= flat_floor {
-        return Some(Reason::Flat);
+        return Some(Reason::NoSignal);
     }
     None
 }
@@ -202,11 +210,11 @@ pub fn relative_reasons(
     };
     for (k, &c) in idx.iter().enumerate() {
         out[c] = if dev[k].is_some_and(|z| z.abs() > opts.z_threshold) {
-            Some(Reason::Deviation)
+            Some(Reason::AmplitudeOutlier)
         } else if noise[k].is_some_and(|z| z > opts.z_threshold) {
-            Some(Reason::HighFrequencyNoise)
+            Some(Reason::BroadbandExcess)
         } else if idx.len() > 1 && stats[c].max_correlation < opts.min_correlation {
-            Some(Reason::Uncorrelated)
+            Some(Reason::Isolated)
         } else {
             None
         };
@@ -253,8 +261,8 @@ mod tests {
         stats[3].robust_sd = 200.0;
         stats[5].max_correlation = 0.1;
         let r = relative_reasons(&stats, &[true; 12], &DetectOptions::default());
-        assert_eq!(r[3], Some(Reason::Deviation));
-        assert_eq!(r[5], Some(Reason::Uncorrelated));
+        assert_eq!(r[3], Some(Reason::AmplitudeOutlier));
+        assert_eq!(r[5], Some(Reason::Isolated));
         assert_eq!(r.iter().filter(|x| x.is_some()).count(), 2);
     }
 }

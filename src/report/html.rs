@@ -47,12 +47,12 @@ svg .legend { font-size: 11px; }
 
 /// Reason colours and one-letter codes: colour is never the only carrier.
 const REASONS: [(&str, &str, &str); 7] = [
-    ("non-finite", "N", "#7b3294"),
-    ("railed", "R", "#d6604d"),
-    ("flat", "F", "#878787"),
-    ("deviation", "D", "#e08214"),
-    ("high-frequency-noise", "H", "#35978f"),
-    ("uncorrelated", "U", "#4393c3"),
+    ("missing-samples", "M", "#7b3294"),
+    ("saturated", "S", "#d6604d"),
+    ("no-signal", "Z", "#878787"),
+    ("amplitude-outlier", "A", "#e08214"),
+    ("broadband-excess", "B", "#35978f"),
+    ("isolated", "I", "#4393c3"),
     ("user", "X", "#542788"),
 ];
 
@@ -589,7 +589,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     if let Some(ep) = epochs {
         let ep_names = strings(&ep["channels"]);
         if let Some(svg) = raster(ep, &ep_names) {
-            sec.push_str(&figure(&svg, "Letters repeat the colours: N non-finite, R railed, F flat, D deviation, H high-frequency noise, U uncorrelated, X marked by the user."));
+            sec.push_str(&figure(&svg, "Letters repeat the colours: M missing samples, S saturated, Z no signal, A amplitude outlier, B broadband excess, I isolated from the other channels, X marked by the user."));
         }
     }
     if let Some(co) = matrix(&compare["coobservation"]) {
