@@ -502,3 +502,35 @@ fn subsecond_start_is_honoured() {
         assert!((e.onset - o).abs() < 1e-6, "{} vs pyedflib {o}", e.onset);
     }
 }
+
+// Under `ulimit -v` a run that cannot fit is refused with its estimate before it
+// allocates (an allocation failure would abort the process). The stack is a
+// sparse 781 MiB file: only its header is read before the refusal.
+#[test]
+fn runs_that_cannot_fit_are_refused_with_the_estimate() {
+    let d = Dir::new("mem");
+    let (n, p) = (100_000usize, 32usize);
+    let header = lacuna::trials::npy::encode_f64(&[n, p, p], &[]);
+    let path = d.write("huge.npy", &header);
+    let f = std::fs::OpenOptions::new().write(true).open(&path).unwrap();
+    f.set_len((header.len() + n * p * p * 8) as u64).unwrap();
+    let out = d.path("m.npy");
+    let script = format!(
+        "ulimit -v 1000000 && exec {} mean --covs {} --out {}",
+        env!("CARGO_BIN_EXE_lacuna"),
+        s(&path),
+        s(&out)
+    );
+    let o = std::process::Command::new("sh")
+        .arg("-c")
+        .arg(&script)
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(3), "{err}");
+    assert!(
+        err.contains("needs about") && err.contains("ulimit -v"),
+        "{err}"
+    );
+    assert!(!out.exists());
+}

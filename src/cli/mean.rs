@@ -148,6 +148,12 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         lacuna::output::check_paths(&inputs, &outputs, &[])?;
     }
     let started = Instant::now();
+    // The stack is read block by block, then worked on: peak resident memory
+    // measured at 1.5× the file (20 000 trials × 32 channels: 238 MB for a
+    // 156 MB stack); 2× leaves a margin.
+    if let Ok(m) = std::fs::metadata(&a.covs) {
+        lacuna::limits::check_fits("lacuna mean", 2 * m.len(), rayon::current_num_threads())?;
+    }
     let mut set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
     let mut dropped = Vec::new();
     let mut ident = identifiability(&set);
