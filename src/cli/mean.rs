@@ -10,8 +10,7 @@ use lacuna::diagnose::{identifiability, summarize};
 use lacuna::report::json::MeanReport;
 use lacuna::schemes::InitRule;
 use lacuna::solve::StopRule;
-use lacuna::trials::io::{load_trial_set, write_matrix};
-use lacuna::trials::npy::write_atomic;
+use lacuna::trials::io::load_trial_set;
 use lacuna::{LacunaError, Result, SchemeOptions, scheme_by_name};
 
 #[derive(Args, Debug)]
@@ -216,7 +215,7 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         eprintln!();
     }
     let elapsed = started.elapsed().as_secs_f64();
-    write_matrix(&a.out, &result.published(), set.channels())?;
+    let mean_bytes = lacuna::trials::io::encode_matrix(&a.out, &result.published(), set.channels());
     let summary = summarize(&set, &result.mean);
     let report = MeanReport::new(
         &result,
@@ -233,9 +232,13 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     report.ranks = Some(&ranks);
     report.regularizer = options.regularize;
     let json = report.to_json();
+    // The mean and its report are staged together and renamed together: a
+    // failing report never leaves a new mean beside an old report.
+    let mut files = vec![(a.out.clone(), mean_bytes)];
     if let Some(path) = &a.report {
-        write_atomic(path, json.as_bytes())?;
+        files.push((path.clone(), json.as_bytes().to_vec()));
     }
+    lacuna::output::write_outputs(None, files)?;
     if a.json {
         println!("{json}");
     }

@@ -567,10 +567,21 @@ pub fn read_positions(path: &Path, channels: &[String]) -> Result<Vec<[f64; 3]>>
                 format!("row {row} (channel {}): position at the origin", cells[0]),
             ));
         }
-        found.insert(
-            cells[0].to_string(),
-            [v[0] / norm, v[1] / norm, v[2] / norm],
-        );
+        if found
+            .insert(
+                cells[0].to_string(),
+                [v[0] / norm, v[1] / norm, v[2] / norm],
+            )
+            .is_some()
+        {
+            return Err(format_err(
+                path,
+                format!(
+                    "row {row}: channel {} is listed twice; give each electrode one position",
+                    cells[0]
+                ),
+            ));
+        }
     }
     channels
         .iter()
