@@ -11,6 +11,9 @@
 //!   that name is replaced only once the new one is complete.
 //! - [`check_paths`]: refuses an output equal to an input or to another
 //!   output (compared after resolving links and `..`).
+//!
+//! Temporary names carry the writer's PID; a later write to the same target
+//! removes those left by processes that no longer run (killed mid-write).
 
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -68,9 +71,52 @@ fn check_target_file(path: &Path) -> Result<()> {
     }
 }
 
+/// Removes temporary files and folders that an earlier lacuna process left
+/// beside `path` when it was killed (`.NAME.PID.N.partial` / `.old` whose PID
+/// no longer runs). Only names of exactly our pattern are touched.
+fn sweep_orphans(path: &Path) {
+    let Some(name) = path.file_name().map(|n| n.to_string_lossy().to_string()) else {
+        return;
+    };
+    let Ok(entries) = std::fs::read_dir(parent_of(path)) else {
+        return;
+    };
+    let prefix = format!(".{name}.");
+    for e in entries.flatten() {
+        let f = e.file_name().to_string_lossy().to_string();
+        let Some(rest) = f.strip_prefix(&prefix) else {
+            continue;
+        };
+        let parts: Vec<&str> = rest.split('.').collect();
+        let [pid, n, kind] = parts.as_slice() else {
+            continue;
+        };
+        let (Ok(pid), Ok(_)) = (pid.parse::<u32>(), n.parse::<u64>()) else {
+            continue;
+        };
+        if !(*kind == "partial" || *kind == "old")
+            || pid == std::process::id()
+            || Path::new(&format!("/proc/{pid}")).exists()
+        {
+            continue;
+        }
+        let p = e.path();
+        match std::fs::symlink_metadata(&p) {
+            Ok(m) if m.is_dir() => {
+                let _ = std::fs::remove_dir_all(&p);
+            }
+            Ok(m) if m.is_file() => {
+                let _ = std::fs::remove_file(&p);
+            }
+            _ => {}
+        }
+    }
+}
+
 /// Writes `bytes` to `path` atomically (see the module documentation).
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
     check_target_file(path)?;
+    sweep_orphans(path);
     let tmp = temp_sibling(path, "partial");
     let result = (|| {
         let mut f = std::fs::OpenOptions::new()
@@ -134,6 +180,7 @@ pub fn write_folder(dir: &Path, files: &[(PathBuf, Vec<u8>)]) -> Result<()> {
     if let Some(p) = dir.parent().filter(|p| !p.as_os_str().is_empty()) {
         std::fs::create_dir_all(p).map_err(|e| werr(p, e))?;
     }
+    sweep_orphans(dir);
     let tmp = temp_sibling(dir, "partial");
     let result = (|| -> Result<()> {
         std::fs::create_dir(&tmp).map_err(|e| werr(&tmp, e))?;
@@ -195,6 +242,7 @@ pub fn write_outputs(folder: Option<&Path>, files: Vec<(PathBuf, Vec<u8>)>) -> R
     };
     for (path, bytes) in &outside {
         check_target_file(path)?;
+        sweep_orphans(path);
         let tmp = temp_sibling(path, "partial");
         let r = (|| {
             let mut f = std::fs::OpenOptions::new()

@@ -534,3 +534,129 @@ fn runs_that_cannot_fit_are_refused_with_the_estimate() {
     );
     assert!(!out.exists());
 }
+
+// A temporary file left by a killed writer (its PID no longer runs) is removed
+// by the next write to the same target; one of a running process is left alone.
+#[test]
+fn orphaned_temporary_files_are_swept() {
+    let d = Dir::new("orphans");
+    let out = d.path("m.npy");
+    // PID 4194304 is above Linux's maximum (2^22), so it never runs.
+    let orphan = d.write(".m.npy.4194304.0.partial", b"half");
+    let alive = d.write(&format!(".m.npy.{}.0.partial", std::process::id()), b"mine");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        &demo("mask.csv"),
+        "--out",
+        s(&out),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(!orphan.exists(), "the orphan is removed");
+    assert!(alive.exists(), "a live writer's file is kept");
+}
+
+// A worker pool that cannot start (process limit) is an error with advice,
+// exit 1, never a panic. Run as an unprivileged user where the limit applies.
+#[test]
+fn thread_pool_failure_is_reported() {
+    let bin = env!("CARGO_BIN_EXE_lacuna");
+    let inner = format!(
+        "ulimit -u 1; exec {bin} mean --covs {} --mask {} --out /tmp/lacuna-never-written.npy --threads 16",
+        demo("covs.npy"),
+        demo("mask.csv")
+    );
+    let root = std::process::Command::new("id")
+        .arg("-u")
+        .output()
+        .map(|o| String::from_utf8_lossy(&o.stdout).trim() == "0")
+        .unwrap_or(false);
+    let mut cmd = if root {
+        let mut c = std::process::Command::new("setpriv");
+        c.args([
+            "--reuid=65534",
+            "--regid=65534",
+            "--clear-groups",
+            "bash",
+            "-c",
+            &inner,
+        ]);
+        c
+    } else {
+        let mut c = std::process::Command::new("bash");
+        c.args(["-c", &inner]);
+        c
+    };
+    let Ok(o) = cmd.output() else {
+        eprintln!("SKIPPED: setpriv or bash not available");
+        return;
+    };
+    let err = String::from_utf8_lossy(&o.stderr);
+    if matches!(o.status.code(), Some(126 | 127)) || err.contains("Permission denied") {
+        // The unprivileged user cannot reach the binary in this checkout.
+        eprintln!("SKIPPED: {err}");
+        return;
+    }
+    no_panic(&err);
+    assert_eq!(o.status.code(), Some(1), "{err}");
+    assert!(
+        err.contains("cannot start") && err.contains("--threads 1"),
+        "{err}"
+    );
+}
+
+// Messages name the right file and say what to do (common practice, no source).
+#[test]
+fn messages_name_the_culprit() {
+    let d = Dir::new("messages");
+    let mut w = vec![1.0f64; 240];
+    w[3] = f64::NAN;
+    let wf = d.write("w.npy", &encode_f64(&[240], &w));
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        &demo("mask.csv"),
+        "--weights",
+        s(&wf),
+        "--out",
+        s(&d.path("m.npy")),
+    ]);
+    assert_eq!(code, 3);
+    assert!(err.contains("w.npy") && err.contains("trial 3"), "{err}");
+    assert!(!err.contains("covs.npy"), "{err}");
+    // A finite but huge value is not blamed as NaN or rank.
+    let mut stack = lacuna::trials::npy::read_npy(std::path::Path::new(&demo("covs.npy"))).unwrap();
+    if let lacuna::trials::npy::NpyData::Float(v) = &mut stack.data {
+        v[2 * 24 * 24] = 1e300;
+    }
+    let data = match stack.data {
+        lacuna::trials::npy::NpyData::Float(v) => v,
+        _ => unreachable!(),
+    };
+    let big = d.write("big.npy", &encode_f64(&stack.shape, &data));
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&big),
+        "--mask",
+        &demo("mask.csv"),
+        "--out",
+        s(&d.path("m.npy")),
+    ]);
+    assert_eq!(code, 3);
+    assert!(err.contains("1e300") && err.contains("rescale"), "{err}");
+    // An extraction that masks everything says which rules and what to do.
+    let (code, _, err) = extract_demo(
+        &d.path("t"),
+        &["--z-threshold", "0.5", "--min-correlation", "1"],
+    );
+    assert_eq!(code, 3);
+    assert!(
+        err.contains("--no-detect") && err.contains("amplitude-outlier"),
+        "{err}"
+    );
+}
