@@ -202,3 +202,102 @@ fn numeric_options_never_panic_or_hang() {
     }
     assert!(runs >= 300, "{runs} runs");
 }
+
+/// One random structural mutation of a JSON document: a value replaced by
+/// another type, an array shortened or lengthened, a key removed.
+fn mutate_json(v: &mut serde_json::Value, rng: &mut Rng, depth: usize) {
+    use serde_json::Value;
+    let replace = |rng: &mut Rng| -> Value {
+        match rng.below(7) {
+            0 => Value::Null,
+            1 => serde_json::json!(-1),
+            2 => serde_json::json!(1e308),
+            3 => serde_json::json!("x"),
+            4 => serde_json::json!([]),
+            5 => serde_json::json!({}),
+            _ => serde_json::json!([[0, 999], [-1, 0]]),
+        }
+    };
+    match v {
+        Value::Object(map) if !map.is_empty() => {
+            let keys: Vec<String> = map.keys().cloned().collect();
+            let k = &keys[rng.below(keys.len())];
+            match rng.below(4) {
+                0 => {
+                    map.remove(k);
+                }
+                1 => {
+                    map.insert(k.clone(), replace(rng));
+                }
+                _ if depth < 6 => mutate_json(map.get_mut(k).unwrap(), rng, depth + 1),
+                _ => {}
+            }
+        }
+        Value::Array(a) if !a.is_empty() => match rng.below(4) {
+            0 => {
+                a.pop();
+            }
+            1 => {
+                let x = a[0].clone();
+                a.push(x);
+            }
+            _ if depth < 6 => {
+                let i = rng.below(a.len());
+                mutate_json(&mut a[i], rng, depth + 1)
+            }
+            _ => {}
+        },
+        other => *other = replace(rng),
+    }
+}
+
+// `lacuna report --compare` on mutated compare.json documents (and epochs.json):
+// exit 0 or 3, never a panic or a hang (common practice, no source).
+#[test]
+fn report_survives_mutated_json() {
+    let d = Dir::new("jsonfuzz");
+    let (covs, mask) = common::write_masked_set(&d, 30, 5, 8);
+    let cmp = d.path("cmp");
+    let (code, _, err) = common::lacuna(&[
+        "compare",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--schemes",
+        "airm-observed,shrinkage",
+        "--no-leave-out",
+        "--repeats",
+        "2",
+        "--out",
+        s(&cmp),
+        "--quiet",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let original: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(cmp.join("compare.json")).unwrap()).unwrap();
+    let rounds: usize = std::env::var("LACUNA_CLI_FUZZ_ROUNDS")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .map_or(60, |r: usize| r * 20);
+    let mut rng = Rng::new(11);
+    let dir = d.path("mut");
+    std::fs::create_dir_all(&dir).unwrap();
+    for _ in 0..rounds {
+        let mut doc = original.clone();
+        for _ in 0..1 + rng.below(3) {
+            mutate_json(&mut doc, &mut rng, 0);
+        }
+        std::fs::write(dir.join("compare.json"), doc.to_string()).unwrap();
+        let args: Vec<String> = vec![
+            "report".into(),
+            "--compare".into(),
+            s(&dir).into(),
+            "--out".into(),
+            s(&d.path("r.html")).into(),
+        ];
+        let (code, err) = run(&args, Duration::from_secs(10));
+        assert!(!err.contains("panicked"), "{doc}: {err}");
+        assert!(matches!(code, Some(0 | 3)), "exit {code:?}: {err}");
+    }
+}

@@ -660,3 +660,69 @@ fn messages_name_the_culprit() {
         "{err}"
     );
 }
+
+// 100 000 events on a 96-s recording would read it hundreds of times over: refused
+// at once, naming the events, instead of minutes and gigabytes.
+#[test]
+fn too_many_events_are_refused_quickly() {
+    let d = Dir::new("manyevents");
+    let mut text = String::from("onset,duration,label\n");
+    for k in 0..100_000 {
+        text.push_str(&format!("{},2,a\n", (k % 90) as f64 + 0.5));
+    }
+    let ev = d.write("ev.csv", text.as_bytes());
+    let start = std::time::Instant::now();
+    let (code, _, err) = lacuna(&[
+        "extract",
+        &demo_recording("session-1.edf"),
+        "--events",
+        s(&ev),
+        "--length",
+        "2",
+        "--out",
+        s(&d.path("t")),
+    ]);
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("times over"), "{err}");
+    assert!(start.elapsed().as_secs() < 20);
+}
+
+// A label with a comma stays one label through compare --labels.
+#[test]
+fn quoted_labels_are_one_label() {
+    let d = Dir::new("labels");
+    let (covs, mask) = common::write_masked_set(&d, 30, 5, 9);
+    let mut text = String::from("label,session\n");
+    for k in 0..30 {
+        text.push_str(if k % 2 == 0 {
+            "\"left, cued\",s1\n"
+        } else {
+            "right,s1\n"
+        });
+    }
+    let labels = d.write("labels.csv", text.as_bytes());
+    let out = d.path("cmp");
+    let (code, _, err) = lacuna(&[
+        "compare",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--labels",
+        s(&labels),
+        "--schemes",
+        "airm-observed",
+        "--no-leave-out",
+        "--repeats",
+        "2",
+        "--out",
+        s(&out),
+        "--quiet",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let c: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("compare.json")).unwrap()).unwrap();
+    let classes: Vec<String> = serde_json::from_value(c["decoding"]["classes"].clone()).unwrap();
+    assert_eq!(classes.len(), 2, "{classes:?}");
+    assert!(classes.contains(&"left, cued".to_string()));
+}

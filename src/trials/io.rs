@@ -599,29 +599,36 @@ pub fn read_positions(path: &Path, channels: &[String]) -> Result<Vec<[f64; 3]>>
 /// `session`, when present, gives the session.
 pub fn read_labels(path: &Path, n: usize) -> Result<(Vec<String>, Option<Vec<String>>)> {
     require_regular(path)?;
-    let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
-        path: path.to_path_buf(),
-        source,
-    })?;
-    let mut lines = text.lines();
-    let header: Vec<String> = lines
-        .next()
-        .unwrap_or("")
-        .split(',')
-        .map(|h| h.trim().to_ascii_lowercase())
+    // Parsed with quoting (RFC 4180): a label "left, cued" is one label.
+    let mut rdr = csv::ReaderBuilder::new()
+        .trim(csv::Trim::All)
+        .flexible(true)
+        .from_path(path)
+        .map_err(|e| format_err(path, e.to_string()))?;
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| format_err(path, e.to_string()))?
+        .iter()
+        .map(str::to_ascii_lowercase)
         .collect();
     let label_col = header.iter().position(|h| h == "label").unwrap_or(0);
     let session_col = header.iter().position(|h| h == "session");
     let mut labels = Vec::new();
     let mut sessions = Vec::new();
-    for line in lines {
-        if line.trim().is_empty() {
+    for (r, rec) in rdr.records().enumerate() {
+        let rec = rec.map_err(|e| format_err(path, format!("row {}: {e}", r + 2)))?;
+        if rec.iter().all(str::is_empty) {
             continue;
         }
-        let cells: Vec<&str> = line.split(',').map(str::trim).collect();
-        labels.push(cells.get(label_col).copied().unwrap_or("").to_string());
+        if labels.len() >= n {
+            return Err(format_err(
+                path,
+                format!("more label rows than the {n} trials"),
+            ));
+        }
+        labels.push(rec.get(label_col).unwrap_or("").to_string());
         if let Some(s) = session_col {
-            sessions.push(cells.get(s).copied().unwrap_or("").to_string());
+            sessions.push(rec.get(s).unwrap_or("").to_string());
         }
     }
     if labels.len() != n {
