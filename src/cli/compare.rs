@@ -570,6 +570,16 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
         }
         files.push((a.out.join("contributions.csv"), s.into_bytes()));
     }
+    let provenance = {
+        let mut paths: Vec<&std::path::Path> = vec![&a.covs];
+        for p in [&a.mask, &a.labels, &a.positions, &a.epochs]
+            .into_iter()
+            .flatten()
+        {
+            paths.push(p);
+        }
+        lacuna::report::provenance::provenance(&paths)?
+    };
     let summary = json!({
         "compare_version": "1",
         "lacuna_version": env!("CARGO_PKG_VERSION"),
@@ -584,6 +594,7 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
         "schemes": rows,
         "distances": {"schemes": labels, "matrix": distances},
         "target": target.name(),
+        "provenance": provenance,
         "ranks": ranks,
         "simulated_dropout": dropout.as_ref().map(|d| json!({
             "channels": d.channels, "left_out": d.left_out, "complete_trials": d.complete_trials,

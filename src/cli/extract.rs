@@ -478,6 +478,14 @@ fn write_outputs(
             })
         })
         .collect();
+    let provenance = {
+        let mut paths: Vec<&Path> = a.recordings.iter().map(PathBuf::as_path).collect();
+        paths.extend(a.events.iter().map(PathBuf::as_path));
+        for p in [&a.epochs, &a.mask].into_iter().flatten() {
+            paths.push(p);
+        }
+        lacuna::report::provenance::provenance(&paths)?
+    };
     let lengths: Vec<usize> = out.epochs.iter().map(|e| e.samples).collect();
     let samples_per_epoch = lengths
         .first()
@@ -496,6 +504,7 @@ fn write_outputs(
         // Every window has the same length when all of them do; later
         // commands (compare --epochs) take T and the degrees of freedom here.
         "samples_per_epoch": samples_per_epoch,
+        "provenance": provenance,
         "detection": opts.detect,
         "user_bad_channels": opts.bad_channels,
         "user_mask": a.mask.as_ref().map(|m| m.display().to_string()),

@@ -230,6 +230,11 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     let ranks = lacuna::diagnose::rank_table(&set, a.samples);
     let mut report = report;
     report.ranks = Some(&ranks);
+    let mut input_paths: Vec<&std::path::Path> = vec![&a.covs];
+    for p in [&a.mask, &a.weights, &a.positions].into_iter().flatten() {
+        input_paths.push(p);
+    }
+    report.provenance = Some(lacuna::report::provenance::provenance(&input_paths)?);
     report.regularizer = options.regularize;
     let json = report.to_json();
     // The mean and its report are staged together and renamed together: a

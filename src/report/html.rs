@@ -827,6 +827,26 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     }
     t.push_str("</table>");
     body.push_str(&section("All schemes", &t));
+    // Where the page came from (read from compare.json, drawn as given).
+    let prov = &compare["provenance"];
+    if prov.is_object() {
+        let mut p = format!(
+            "<p class=\"note\">Made by lacuna {} on {} with: <code>{}</code></p><ul class=\"note\">",
+            escape(prov["lacuna_version"].as_str().unwrap_or("?")),
+            escape(prov["created_utc"].as_str().unwrap_or("?")),
+            escape(&strings(&prov["command_line"]).join(" "))
+        );
+        for i in prov["inputs"].as_array().into_iter().flatten() {
+            p.push_str(&format!(
+                "<li>{} — {} bytes, SHA-256 {}</li>",
+                escape(i["path"].as_str().unwrap_or("?")),
+                i["bytes"],
+                escape(i["sha256"].as_str().unwrap_or("?"))
+            ));
+        }
+        p.push_str("</ul>");
+        body.push_str(&section("Provenance", &p));
+    }
     format!(
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"/><meta name=\"viewport\" content=\"width=device-width, initial-scale=1\"/><title>lacuna report</title><style>{CSS}</style></head><body><main>{body}</main></body></html>\n"
     )

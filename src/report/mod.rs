@@ -10,4 +10,5 @@ pub mod compare_check;
 pub mod epochs_check;
 pub mod html;
 pub mod json;
+pub mod provenance;
 pub mod svg;
