@@ -779,3 +779,31 @@ fn outputs_record_provenance() {
         serde_json::from_str(&std::fs::read_to_string(t.join("epochs.json")).unwrap()).unwrap();
     assert_eq!(e["provenance"]["inputs"].as_array().unwrap().len(), 3);
 }
+
+// Repeated channel names are refused wherever they come from: --channels of
+// extract and rows of --positions (the mask header is checked above).
+#[test]
+fn repeated_names_are_refused_everywhere() {
+    let d = Dir::new("dupnames");
+    let t = d.path("t");
+    let (code, _, err) = extract_demo(&t, &["--channels", "Fp1,Fp1,Cz"]);
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("repeated"), "{err}");
+    assert!(!t.exists());
+    let pos = d.write("pos.csv", b"channel,x,y,z\nFp1,1,0,0\nFp1,0,1,0\n");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        &demo("mask.csv"),
+        "--scheme",
+        "spherical-spline",
+        "--positions",
+        s(&pos),
+        "--out",
+        s(&d.path("m.npy")),
+    ]);
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("listed twice"), "{err}");
+}
