@@ -807,3 +807,132 @@ fn repeated_names_are_refused_everywhere() {
     assert_eq!(code, 3, "{err}");
     assert!(err.contains("listed twice"), "{err}");
 }
+
+// --channels names an NPY stack's channels; a wrong count, a repeat, or a
+// disagreement with a CSV mask's header is refused (common practice, no source).
+#[test]
+fn channel_names_for_npy_stacks() {
+    let d = Dir::new("chnames");
+    let (covs, mask) = common::write_masked_set(&d, 30, 4, 10);
+    let rep = d.path("r.json");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--channels",
+        "Fz,Cz,Pz,Oz",
+        "--out",
+        s(&d.path("m.npy")),
+        "--report",
+        s(&rep),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["channels"], serde_json::json!(["Fz", "Cz", "Pz", "Oz"]));
+    let names = d.write("names.txt", b"Fz\nCz\nPz\nOz\n");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--channels",
+        s(&names),
+        "--out",
+        s(&d.path("m2.npy")),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    for (names, want) in [("Fz,Cz,Pz", 3), ("Fz,Cz,Cz,Oz", 3)] {
+        let (code, _, err) = lacuna(&[
+            "mean",
+            "--covs",
+            s(&covs),
+            "--mask",
+            s(&mask),
+            "--channels",
+            names,
+            "--out",
+            s(&d.path("m3.npy")),
+        ]);
+        assert_eq!(code, want, "{names}: {err}");
+    }
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        &demo("mask.csv"),
+        "--channels",
+        &(0..24)
+            .map(|c| format!("e{c}"))
+            .collect::<Vec<_>>()
+            .join(","),
+        "--out",
+        s(&d.path("m4.npy")),
+    ]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("disagrees"), "{err}");
+}
+
+// Units carried through: an EDF in uV gives µV² in epochs.json, compare.json
+// (taken from --epochs) and on the page; a CSV-derived stack with --unit mV gives
+// mV² in the mean report (common practice, no source).
+#[test]
+fn units_are_carried_through() {
+    let d = Dir::new("units");
+    let t = d.path("t");
+    assert_eq!(extract_demo(&t, &[]).0, 0);
+    let e: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(t.join("epochs.json")).unwrap()).unwrap();
+    assert_eq!(e["covariance_unit"], "µV²");
+    let (cmp, html) = (d.path("c"), d.path("r.html"));
+    let (code, _, err) = lacuna(&[
+        "compare",
+        "--covs",
+        s(&t.join("covs.npy")),
+        "--mask",
+        s(&t.join("mask.csv")),
+        "--epochs",
+        s(&t.join("epochs.json")),
+        "--schemes",
+        "airm-observed",
+        "--no-leave-out",
+        "--repeats",
+        "2",
+        "--out",
+        s(&cmp),
+        "--html",
+        s(&html),
+        "--quiet",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let c: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(cmp.join("compare.json")).unwrap()).unwrap();
+    assert_eq!(c["covariance_unit"], "µV²");
+    assert!(
+        std::fs::read_to_string(&html)
+            .unwrap()
+            .contains("covariance (µV²)")
+    );
+    let rep = d.path("r.json");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&t.join("covs.npy")),
+        "--mask",
+        s(&t.join("mask.csv")),
+        "--unit",
+        "mV",
+        "--out",
+        s(&d.path("m.npy")),
+        "--report",
+        s(&rep),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let r: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    assert_eq!(r["covariance_unit"], "mV²");
+}

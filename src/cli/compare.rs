@@ -43,6 +43,15 @@ pub struct CompareArgs {
     /// masked mean (target population), when not --samples minus one.
     #[arg(long, value_name = "N")]
     effective_samples: Option<f64>,
+    /// Physical unit of the data the covariances came from (e.g. µV); the
+    /// report gives covariances in its square. compare takes it from
+    /// --epochs when not given.
+    #[arg(long, value_name = "UNIT")]
+    unit: Option<String>,
+    /// Channel names for a stack without a CSV mask (which otherwise get
+    /// ch0, ch1, …): comma-separated, or a file of names.
+    #[arg(long, value_name = "NAMES|FILE")]
+    channels: Option<String>,
     /// Covariance stack: NPY float64 (N, p, p), NaN where unobserved allowed.
     #[arg(long, value_name = "STACK.npy")]
     covs: PathBuf,
@@ -186,13 +195,17 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
             .collect();
         lacuna::output::check_paths(&inputs, &html_outside, &[("--out", &a.out)])?;
     }
-    // T from the extraction's epochs.json when not given.
-    if a.samples.is_none()
-        && let Some(e) = &a.epochs
+    // T and the unit from the extraction's epochs.json when not given.
+    if let Some(e) = &a.epochs
+        && (a.samples.is_none() || a.unit.is_none())
     {
-        a.samples = super::report::read_json(e)?["samples_per_epoch"]
-            .as_u64()
-            .map(|t| t as usize);
+        let doc = super::report::read_json(e)?;
+        if a.samples.is_none() {
+            a.samples = doc["samples_per_epoch"].as_u64().map(|t| t as usize);
+        }
+        if a.unit.is_none() {
+            a.unit = doc["unit"].as_str().map(str::to_string);
+        }
     }
     {
         use super::ranges::{float_in, int_in};
@@ -217,6 +230,7 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
         lacuna::limits::check_fits("lacuna compare", 8 * m.len(), rayon::current_num_threads())?;
     }
     let mut set = load_trial_set(&a.covs, a.mask.as_deref(), None)?;
+    set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
     if let Some(path) = &a.labels {
         let (labels, sessions) = read_labels(path, set.len())?;
         set.labels = Some(labels);
@@ -594,6 +608,8 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
         "schemes": rows,
         "distances": {"schemes": labels, "matrix": distances},
         "target": target.name(),
+        "unit": a.unit.as_deref().map(super::display_unit),
+        "covariance_unit": super::covariance_unit(a.unit.as_deref()),
         "provenance": provenance,
         "ranks": ranks,
         "simulated_dropout": dropout.as_ref().map(|d| json!({

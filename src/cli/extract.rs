@@ -75,6 +75,10 @@ pub struct ExtractArgs {
     /// that replaces automatic detection.
     #[arg(long, value_name = "MASK")]
     mask: Option<PathBuf>,
+    /// Physical unit of the samples (e.g. µV); default: the EDF/BDF header's
+    /// when every channel shares one. Recorded in epochs.json.
+    #[arg(long, value_name = "UNIT")]
+    unit: Option<String>,
     /// Do not read the annotation signal of EDF+/BDF+ files (it is otherwise
     /// checked in full, and a malformed one is refused); give the events
     /// with --events or use --window.
@@ -216,6 +220,7 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
     })?;
     let band = a.band.as_deref().map(parse_band).transpose()?;
     let mut inputs = Vec::new();
+    let mut edf_units: Vec<String> = Vec::new();
     if let Some(path) = &a.epochs {
         let rate = a.rate.ok_or_else(|| {
             LacunaError::InvalidOption("--epochs needs the sampling rate: --rate HZ".into())
@@ -255,6 +260,7 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
                 (Box::new(read_signal_csv(path, rate)?), Vec::new())
             } else {
                 let mut f = EdfFile::open(path)?;
+                edf_units.extend(f.units());
                 if !a.quiet {
                     for w in &f.header.warnings {
                         eprintln!("warning: {}: {w}", path.display());
@@ -360,7 +366,13 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
     }
     let elapsed = started.elapsed().as_secs_f64();
     let set = out.trial_set()?;
-    write_outputs(&a, &out, &set, &sources, &opts, elapsed)?;
+    // The data's physical unit: --unit, else the EDF/BDF headers' when every
+    // channel shares one.
+    let unit = a.unit.clone().or_else(|| {
+        let first = edf_units.first()?.clone();
+        (!first.is_empty() && edf_units.iter().all(|u| *u == first)).then_some(first)
+    });
+    write_outputs(&a, &out, &set, &sources, &opts, elapsed, unit.as_deref())?;
     let summary = summary_json(&out, &set, elapsed);
     if a.json {
         println!("{}", serde_json::to_string_pretty(&summary).expect("JSON"));
@@ -431,6 +443,7 @@ fn print_summary(a: &ExtractArgs, out: &Extraction, set: &lacuna::TrialSet) {
     );
 }
 
+#[allow(clippy::too_many_arguments)]
 fn write_outputs(
     a: &ExtractArgs,
     out: &Extraction,
@@ -438,6 +451,7 @@ fn write_outputs(
     sources: &[(String, String)],
     opts: &ExtractOptions,
     elapsed: f64,
+    unit: Option<&str>,
 ) -> Result<()> {
     // Everything is encoded before the first file is written.
     let mask_csv = encode_mask_csv(set);
@@ -504,6 +518,8 @@ fn write_outputs(
         // Every window has the same length when all of them do; later
         // commands (compare --epochs) take T and the degrees of freedom here.
         "samples_per_epoch": samples_per_epoch,
+        "unit": unit.map(super::display_unit),
+        "covariance_unit": super::covariance_unit(unit),
         "provenance": provenance,
         "detection": opts.detect,
         "user_bad_channels": opts.bad_channels,

@@ -15,6 +15,15 @@ use lacuna::{LacunaError, Result, SchemeOptions, scheme_by_name};
 
 #[derive(Args, Debug)]
 pub struct MeanArgs {
+    /// Physical unit of the data the covariances came from (e.g. µV); the
+    /// report gives covariances in its square. compare takes it from
+    /// --epochs when not given.
+    #[arg(long, value_name = "UNIT")]
+    unit: Option<String>,
+    /// Channel names for a stack without a CSV mask (which otherwise get
+    /// ch0, ch1, …): comma-separated, or a file of names.
+    #[arg(long, value_name = "NAMES|FILE")]
+    channels: Option<String>,
     /// Covariance stack: NPY float64 of shape (N, p, p). Rows/columns of
     /// unobserved channels may be NaN (then --mask may be omitted).
     #[arg(long, value_name = "STACK.npy")]
@@ -154,6 +163,7 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         lacuna::limits::check_fits("lacuna mean", 2 * m.len(), rayon::current_num_threads())?;
     }
     let mut set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
+    set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
     let mut dropped = Vec::new();
     let mut ident = identifiability(&set);
     if a.drop_unobserved && !ident.never_observed.is_empty() {
@@ -235,6 +245,8 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         input_paths.push(p);
     }
     report.provenance = Some(lacuna::report::provenance::provenance(&input_paths)?);
+    report.unit = a.unit.as_deref().map(super::display_unit);
+    report.covariance_unit = super::covariance_unit(a.unit.as_deref());
     report.regularizer = options.regularize;
     let json = report.to_json();
     // The mean and its report are staged together and renamed together: a

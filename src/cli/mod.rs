@@ -149,3 +149,64 @@ pub fn degrees_of_freedom(samples: Option<usize>, effective: Option<f64>) -> lac
         )),
     }
 }
+
+/// Channel names from `--channels`: a comma-separated list, or a file holding
+/// the names (one per line or comma-separated). A CSV mask's header, when
+/// there is one, must agree with them.
+pub fn apply_channel_names(
+    set: lacuna::TrialSet,
+    spec: Option<&str>,
+    mask: Option<&std::path::Path>,
+) -> lacuna::Result<lacuna::TrialSet> {
+    let Some(spec) = spec else {
+        return Ok(set);
+    };
+    let path = std::path::Path::new(spec);
+    let (text, source) = if path.is_file() {
+        lacuna::trials::io::require_regular(path)?;
+        (
+            std::fs::read_to_string(path).map_err(|source| lacuna::LacunaError::Read {
+                path: path.to_path_buf(),
+                source,
+            })?,
+            spec.to_string(),
+        )
+    } else {
+        (spec.to_string(), "--channels".to_string())
+    };
+    let names: Vec<String> = text
+        .split([',', '\n'])
+        .map(|n| n.trim().to_string())
+        .filter(|n| !n.is_empty())
+        .collect();
+    let from_mask = mask.is_some_and(|m| {
+        m.extension()
+            .and_then(|e| e.to_str())
+            .is_some_and(|e| e.eq_ignore_ascii_case("csv"))
+    });
+    if from_mask && names != set.channels() {
+        return Err(lacuna::LacunaError::InvalidOption(format!(
+            "--channels ({}) disagrees with the mask's header ({}); give one or make them agree",
+            names.join(", "),
+            set.channels().join(", ")
+        )));
+    }
+    set.with_channel_names(names, &source)
+}
+
+/// A physical unit as shown: EDF's ASCII "uV" is written µV.
+pub fn display_unit(u: &str) -> String {
+    let u = u.trim();
+    match u.strip_prefix('u') {
+        Some(rest) if !rest.is_empty() && rest.chars().all(|c| c.is_ascii_alphabetic()) => {
+            format!("µ{rest}")
+        }
+        _ => u.to_string(),
+    }
+}
+
+/// The covariance unit of data in `unit` (its square), if known.
+pub fn covariance_unit(unit: Option<&str>) -> Option<String> {
+    unit.filter(|u| !u.trim().is_empty())
+        .map(|u| format!("{}²", display_unit(u)))
+}

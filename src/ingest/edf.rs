@@ -353,6 +353,14 @@ impl EdfFile {
         Self::from_header(path, file, header)
     }
 
+    /// Physical units of the offered channels (the header's dimension field).
+    pub fn units(&self) -> Vec<String> {
+        self.channels
+            .iter()
+            .map(|&k| self.header.signals[k].unit.trim().to_string())
+            .collect()
+    }
+
     fn from_header(path: &Path, file: File, header: EdfHeader) -> Result<EdfFile> {
         // Dominant rate: the samples-per-record value shared by most signals.
         let data: Vec<usize> = (0..header.signals.len())

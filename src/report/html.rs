@@ -615,6 +615,10 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
         .flatten()
         .filter(|s| s["status"] == "ok")
         .collect();
+    // The covariance unit when the inputs named one (EDF header or --unit).
+    let cov_unit = compare["covariance_unit"]
+        .as_str()
+        .map_or("data units²".to_string(), escape);
     let means: Vec<(String, Vec<Vec<f64>>)> = rows
         .iter()
         .filter_map(|s| Some((s["scheme"].as_str()?.to_string(), matrix(&s["mean"])?)))
@@ -627,13 +631,13 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
             .filter(|v| v.is_finite())
             .fold(0.0f64, |a, v| a.max(v.abs()));
         let cell = (300.0 / p as f64).clamp(3.0, 12.0);
-        sec.push_str("<p class=\"note\">All maps share one diverging colour scale, symmetric about zero, in the data's squared units. Light grey cells are entries a scheme did not estimate.</p><div class=\"grid\">");
+        sec.push_str(&format!("<p class=\"note\">All maps share one diverging colour scale, symmetric about zero, in the covariance unit ({cov_unit}). Light grey cells are entries a scheme did not estimate.</p><div class=\"grid\">"));
         for (name, m) in &means {
             sec.push_str(&heatmap(
                 m,
                 &names,
                 &format!("Mean: {name}"),
-                "covariance (data units²)",
+                &format!("covariance ({cov_unit})"),
                 scale,
                 true,
                 &[],
@@ -671,7 +675,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
                     m,
                     &names,
                     &format!("{name} − {b}"),
-                    "difference (data units²)",
+                    &format!("difference ({cov_unit})"),
                     dscale,
                     true,
                     &[],

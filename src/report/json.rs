@@ -44,6 +44,9 @@ pub struct MeanReport<'a> {
     pub starts_agree: Option<bool>,
     pub ranks: Option<&'a crate::diagnose::RankTable>,
     pub provenance: Option<crate::report::provenance::Provenance>,
+    /// Physical unit of the data, and of the covariances (its square).
+    pub unit: Option<String>,
+    pub covariance_unit: Option<String>,
     pub regularizer: Option<crate::schemes::regularize::Regularizer>,
     pub boundary: Option<&'a crate::schemes::VanishingDirection>,
     pub notes: &'a [String],
@@ -112,6 +115,8 @@ impl<'a> MeanReport<'a> {
             starts_agree: d.starts_agree,
             ranks: None,
             provenance: None,
+            unit: None,
+            covariance_unit: None,
             regularizer: None,
             boundary: d.boundary.as_ref(),
             notes: &d.notes,

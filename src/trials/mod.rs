@@ -481,6 +481,34 @@ impl TrialSet {
         Ok(out)
     }
 
+    /// The same trials under other channel names (same count; names are
+    /// validated like any input: non-empty, unique).
+    pub fn with_channel_names(&self, names: Vec<String>, source_name: &str) -> Result<TrialSet> {
+        if names.len() != self.channels.len() {
+            return Err(LacunaError::InvalidTrials {
+                source_name: source_name.to_string(),
+                problems: vec![TrialProblem {
+                    trial: None,
+                    channel: None,
+                    message: format!(
+                        "{} channel names given for {} channels",
+                        names.len(),
+                        self.channels.len()
+                    ),
+                }],
+            });
+        }
+        let mut out = TrialSet::new(
+            names,
+            self.trials.clone(),
+            Some(self.weights.clone()),
+            source_name,
+        )?;
+        out.labels = self.labels.clone();
+        out.sessions = self.sessions.clone();
+        Ok(out)
+    }
+
     /// Builds a set of complete trials from full matrices (all channels observed).
     pub fn from_full(
         channels: Vec<String>,
