@@ -274,8 +274,7 @@ fn report_survives_mutated_json() {
         "--quiet",
     ]);
     assert_eq!(code, 0, "{err}");
-    let original: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(cmp.join("compare.json")).unwrap()).unwrap();
+    let original = common::read_json(cmp.join("compare.json"));
     let rounds: usize = std::env::var("LACUNA_CLI_FUZZ_ROUNDS")
         .ok()
         .and_then(|v| v.parse().ok())

@@ -51,8 +51,7 @@ fn inconsistent_cycle_exits_4_with_reason() {
     assert!(err.contains("boundary"), "{err}");
     assert!(err.contains("mutually inconsistent"), "{err}");
     assert!(out.exists() && rep.exists());
-    let r: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    let r = common::read_json(&rep);
     assert_eq!(r["converged"], false);
     assert_eq!(r["stop_reason"], "boundary");
     assert_eq!(r["boundary"]["channels"].as_array().unwrap().len(), 3);
@@ -257,8 +256,7 @@ fn average_referenced_demo_is_served() {
         s(&rep),
     ]);
     assert_eq!(code, 0, "{err}");
-    let r: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    let r = common::read_json(&rep);
     assert_eq!(r["ranks"]["by_cause"]["average-reference"], 240);
     assert_eq!(r["regularizer"]["kind"], "shrinkage");
     let cmp = d.path("cmp");
@@ -276,8 +274,7 @@ fn average_referenced_demo_is_served() {
         "--quiet",
     ]);
     assert_eq!(code, 0, "{err}");
-    let c: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(cmp.join("compare.json")).unwrap()).unwrap();
+    let c = common::read_json(cmp.join("compare.json"));
     assert_eq!(c["recommendation"]["primary"], "held-out-fit");
     assert_eq!(c["held_out_fit"]["criterion"], "likelihood");
     assert!(c["simulated_dropout"].is_null());

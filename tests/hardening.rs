@@ -486,8 +486,7 @@ fn malformed_edf_files_are_refused_with_the_place_named() {
 // them (subsecond.json), so the epochs are not cut 50 samples late.
 #[test]
 fn subsecond_start_is_honoured() {
-    let info: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(edf("subsecond.json")).unwrap()).unwrap();
+    let info = common::read_json(edf("subsecond.json"));
     let mut f = lacuna::ingest::edf::EdfFile::open(std::path::Path::new(&edf(
         "pyedflib_test_subsecond.edf",
     )))
@@ -720,8 +719,7 @@ fn quoted_labels_are_one_label() {
         "--quiet",
     ]);
     assert_eq!(code, 0, "{err}");
-    let c: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("compare.json")).unwrap()).unwrap();
+    let c = common::read_json(out.join("compare.json"));
     let classes: Vec<String> = serde_json::from_value(c["decoding"]["classes"].clone()).unwrap();
     assert_eq!(classes.len(), 2, "{classes:?}");
     assert!(classes.contains(&"left, cued".to_string()));
@@ -745,8 +743,7 @@ fn outputs_record_provenance() {
         s(&rep),
     ]);
     assert_eq!(code, 0, "{err}");
-    let r: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    let r = common::read_json(&rep);
     let inputs = r["provenance"]["inputs"].as_array().unwrap();
     assert_eq!(inputs.len(), 2);
     for i in inputs {
@@ -775,8 +772,7 @@ fn outputs_record_provenance() {
     );
     let t = d.path("t");
     assert_eq!(extract_demo(&t, &[]).0, 0);
-    let e: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(t.join("epochs.json")).unwrap()).unwrap();
+    let e = common::read_json(t.join("epochs.json"));
     assert_eq!(e["provenance"]["inputs"].as_array().unwrap().len(), 3);
 }
 
@@ -829,8 +825,7 @@ fn channel_names_for_npy_stacks() {
         s(&rep),
     ]);
     assert_eq!(code, 0, "{err}");
-    let r: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    let r = common::read_json(&rep);
     assert_eq!(r["channels"], serde_json::json!(["Fz", "Cz", "Pz", "Oz"]));
     let names = d.write("names.txt", b"Fz\nCz\nPz\nOz\n");
     let (code, _, err) = lacuna(&[
@@ -885,8 +880,7 @@ fn units_are_carried_through() {
     let d = Dir::new("units");
     let t = d.path("t");
     assert_eq!(extract_demo(&t, &[]).0, 0);
-    let e: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(t.join("epochs.json")).unwrap()).unwrap();
+    let e = common::read_json(t.join("epochs.json"));
     assert_eq!(e["covariance_unit"], "µV²");
     let (cmp, html) = (d.path("c"), d.path("r.html"));
     let (code, _, err) = lacuna(&[
@@ -909,8 +903,7 @@ fn units_are_carried_through() {
         "--quiet",
     ]);
     assert_eq!(code, 0, "{err}");
-    let c: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(cmp.join("compare.json")).unwrap()).unwrap();
+    let c = common::read_json(cmp.join("compare.json"));
     assert_eq!(c["covariance_unit"], "µV²");
     assert!(
         std::fs::read_to_string(&html)
@@ -932,7 +925,6 @@ fn units_are_carried_through() {
         s(&rep),
     ]);
     assert_eq!(code, 0, "{err}");
-    let r: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&rep).unwrap()).unwrap();
+    let r = common::read_json(&rep);
     assert_eq!(r["covariance_unit"], "mV²");
 }

@@ -130,3 +130,8 @@ pub fn write_masked_set(
         d.write("mask.npy", &lacuna::trials::io::encode_mask(&set)),
     )
 }
+
+/// Reads and parses a JSON file written by a test run.
+pub fn read_json(path: impl AsRef<std::path::Path>) -> serde_json::Value {
+    serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
+}
