@@ -286,3 +286,75 @@ fn average_referenced_demo_is_served() {
         .any(|x| x["scheme"] == rec && x["status"] == "ok");
     assert!(ok, "the recommended scheme ran");
 }
+
+// scipy 1.14.1 BFGS over a Cholesky parametrisation (make_local_minima_fixture.py):
+// the set has exactly two local minima, with positive and negative correlation
+// and different costs. Random starts (seed 3) reach both; the report lists both
+// costs, calls the higher one a different local minimum, and writes the lower.
+#[test]
+fn two_local_minima_are_both_reported() {
+    let f = common::fixture("local_minima");
+    let stack: Vec<f64> = f["stack"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .flat_map(|m| m.as_array().unwrap().iter())
+        .flat_map(|row| row.as_array().unwrap().iter())
+        .map(|v| v.as_f64().unwrap_or(f64::NAN))
+        .collect();
+    let n = stack.len() / 4;
+    let d = Dir::new("two-minima");
+    let covs = d.write("covs.npy", &encode_f64(&[n, 2, 2], &stack));
+    let (out, rep) = (d.path("m.csv"), d.path("r.json"));
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--starts",
+        "8",
+        "--seed",
+        "3",
+        "--out",
+        s(&out),
+        "--report",
+        s(&rep),
+    ]);
+    assert_eq!(code, 0, "{err}");
+    assert!(err.contains("more than one local minimum"), "{err}");
+    let minima = f["minima"].as_array().unwrap();
+    assert_eq!(minima.len(), 2);
+    let cost = |i: usize| minima[i]["cost"].as_f64().unwrap();
+    let r = common::read_json(&rep);
+    assert_eq!(r["starts_agree"], false);
+    let starts = r["starts"].as_array().unwrap();
+    let close = |a: f64, b: f64| (a - b).abs() <= 1e-10 * b.abs();
+    // Every start converged, to one of the two minima; both were reached.
+    for st in starts {
+        assert_eq!(st["converged"], true);
+        let c = st["cost"].as_f64().unwrap();
+        assert!(close(c, cost(0)) || close(c, cost(1)), "cost {c}");
+    }
+    let higher: Vec<_> = starts
+        .iter()
+        .filter(|st| close(st["cost"].as_f64().unwrap(), cost(1)))
+        .collect();
+    assert!(!higher.is_empty(), "no start reached the second minimum");
+    assert!(
+        higher
+            .iter()
+            .all(|st| st["verdict"] == "different local minimum")
+    );
+    // The written mean is the lower minimum.
+    let m = lacuna::trials::io::read_matrix(&out).unwrap();
+    let want = &minima[0]["mean"];
+    for a in 0..2 {
+        for b in 0..2 {
+            let w = want[a][b].as_f64().unwrap();
+            assert!(
+                (m[(a, b)] - w).abs() <= 1e-6 * w.abs(),
+                "({a},{b}): {} vs {w}",
+                m[(a, b)]
+            );
+        }
+    }
+}
