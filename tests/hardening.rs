@@ -168,7 +168,8 @@ fn non_finite_and_out_of_range_options_are_usage_errors() {
     for (opt, val) in [
         ("--offset", "nan"),
         ("--offset", "1e17"),
-        ("--z-threshold", "nan"),
+        ("--amplitude-z", "nan"),
+        ("--broadband-z", "-inf"),
         ("--min-correlation", "2"),
         ("--rail-fraction", "0"),
         ("--order", "0"),
@@ -651,7 +652,14 @@ fn messages_name_the_culprit() {
     // An extraction that masks everything says which rules and what to do.
     let (code, _, err) = extract_demo(
         &d.path("t"),
-        &["--z-threshold", "0.5", "--min-correlation", "1"],
+        &[
+            "--amplitude-z",
+            "0.5",
+            "--broadband-z",
+            "0.5",
+            "--min-correlation",
+            "1",
+        ],
     );
     assert_eq!(code, 3);
     assert!(

@@ -87,9 +87,12 @@ pub struct ExtractArgs {
     /// Turn automatic detection off: only missing samples and --bad count.
     #[arg(long)]
     no_detect: bool,
-    /// Robust z-score beyond which amplitude-outlier and broadband-excess mask a channel (0.5–100).
+    /// amplitude-outlier: mask a channel whose robust SD has a robust z-score (among the epoch's channels) beyond ± this (0.5–100).
     #[arg(long, default_value_t = 6.0)]
-    z_threshold: f64,
+    amplitude_z: f64,
+    /// broadband-excess: mask a channel whose log amplitude above 45 Hz has a robust z-score (among the epoch's channels) above this (0.5–100).
+    #[arg(long, default_value_t = 7.0)]
+    broadband_z: f64,
     /// Mask a channel whose largest |correlation| with the others is below this (0–1).
     #[arg(long, default_value_t = 0.5)]
     min_correlation: f64,
@@ -207,7 +210,8 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
             }
         }
         int_in("--order", a.order, 1, 10)?;
-        float_in("--z-threshold", a.z_threshold, 0.5, 100.0)?;
+        float_in("--amplitude-z", a.amplitude_z, 0.5, 100.0)?;
+        float_in("--broadband-z", a.broadband_z, 0.5, 100.0)?;
         float_in("--min-correlation", a.min_correlation, 0.0, 1.0)?;
         float_in("--flat-ratio", a.flat_ratio, 0.0, 1.0)?;
         float_in("--rail-fraction", a.rail_fraction, 1e-6, 1.0)?;
@@ -332,7 +336,8 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
             enabled: !a.no_detect,
             rail_fraction: a.rail_fraction,
             flat_relative: a.flat_ratio,
-            z_threshold: a.z_threshold,
+            amplitude_z: a.amplitude_z,
+            broadband_z: a.broadband_z,
             min_correlation: a.min_correlation,
             ..DetectOptions::default()
         },
@@ -536,7 +541,7 @@ fn write_outputs(
     });
     let report = a.mask_report.as_ref().map(|_| {
         let mut s = String::from(
-            "epoch,session,onset_s,channel,reason,non_finite,rail_fraction,robust_sd,noise_ratio,max_correlation\n",
+            "epoch,session,onset_s,channel,reason,non_finite,rail_fraction,robust_sd,high_band_mad,max_correlation\n",
         );
         for m in &out.masked {
             let info = &out.epochs[m.epoch];
@@ -549,7 +554,7 @@ fn write_outputs(
                 m.stats.non_finite.to_string(),
                 m.stats.rail_fraction.to_string(),
                 m.stats.robust_sd.to_string(),
-                m.stats.noise_ratio.map_or(String::new(), |v| v.to_string()),
+                m.stats.high_band_mad.map_or(String::new(), |v| v.to_string()),
                 m.stats.max_correlation.to_string(),
             ]));
         }

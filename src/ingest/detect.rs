@@ -12,10 +12,10 @@
 //!    of the channel's own median robust SD over the session's epochs.
 //!    Common practice, no source.
 //! 4. `amplitude-outlier`: robust z-score of the channel's robust SD among
-//!    the epoch's channels beyond `z_threshold` in absolute value;
-//! 5. `broadband-excess`: robust z-score of the ratio
-//!    MAD(x − lowpass(x)) / MAD(lowpass(x)) (power above the split frequency
-//!    against power below it) beyond `z_threshold`;
+//!    the epoch's channels beyond `amplitude_z` in absolute value;
+//! 5. `broadband-excess`: robust z-score of ln MAD(x − lowpass(x)), the
+//!    amplitude above the split frequency on a log scale, among the epoch's
+//!    channels, beyond `broadband_z`;
 //! 6. `isolated`: largest absolute correlation with any other channel (on
 //!    the low-passed signal) below `min_correlation`.
 //!
@@ -81,12 +81,15 @@ pub struct DetectOptions {
     pub enabled: bool,
     pub rail_fraction: f64,
     pub flat_relative: f64,
-    pub z_threshold: f64,
+    /// Robust z of the channel's robust SD (either sign) beyond which it is an amplitude outlier.
+    pub amplitude_z: f64,
+    /// Robust z of the channel's log amplitude above the split beyond which it is a broadband excess.
+    pub broadband_z: f64,
     pub min_correlation: f64,
     /// High-pass edge (Hz) of the detection signal.
     pub highpass_hz: f64,
-    /// Low-pass edge (Hz) separating high-frequency noise.
-    pub noise_cut_hz: f64,
+    /// Split frequency (Hz): the broadband rule measures amplitude above it.
+    pub split_hz: f64,
 }
 
 impl Default for DetectOptions {
@@ -96,10 +99,11 @@ impl Default for DetectOptions {
             rail_fraction: 0.05,
             flat_relative: 0.1,
             // Chosen from lacuna's threshold sweep (docs/ingest.md).
-            z_threshold: 6.0,
+            amplitude_z: 6.0,
+            broadband_z: 7.0,
             min_correlation: 0.5,
             highpass_hz: 1.0,
-            noise_cut_hz: 40.0,
+            split_hz: 45.0,
         }
     }
 }
@@ -111,8 +115,9 @@ pub struct ChannelStats {
     pub rail_fraction: f64,
     /// Robust SD (0.7413 · IQR) of the high-passed signal.
     pub robust_sd: f64,
-    /// Noisiness ratio, when the sampling rate allows it.
-    pub noise_ratio: Option<f64>,
+    /// Median absolute deviation of the signal above the split frequency
+    /// (the epoch minus its low-passed copy), when the sampling rate allows it.
+    pub high_band_mad: Option<f64>,
     /// Largest |correlation| with another eligible channel.
     pub max_correlation: f64,
 }
@@ -170,6 +175,12 @@ pub fn robust_z(values: &[f64]) -> Vec<Option<f64>> {
         .collect()
 }
 
+/// ln of an amplitude, with 0 mapped to the smallest positive double's log
+/// (a channel with nothing above the split is never a broadband excess).
+fn log_amplitude(a: f64) -> f64 {
+    a.max(f64::MIN_POSITIVE).ln()
+}
+
 /// The hard (per-channel) rules 1–3 except the session-relative flat rule.
 pub fn hard_reason(s: &ChannelStats, opts: &DetectOptions, flat_floor: f64) -> Option<Reason> {
     if s.non_finite > 0 {
@@ -199,19 +210,21 @@ pub fn relative_reasons(
     }
     let idx: Vec<usize> = (0..stats.len()).filter(|&c| eligible[c]).collect();
     let dev = robust_z(&idx.iter().map(|&c| stats[c].robust_sd).collect::<Vec<_>>());
-    let noise: Vec<Option<f64>> = if idx.iter().all(|&c| stats[c].noise_ratio.is_some()) {
+    // On a log scale: amplitudes are scale quantities, and a channel twice as
+    // loud above the split should score the same whatever the cap's level.
+    let broadband: Vec<Option<f64>> = if idx.iter().all(|&c| stats[c].high_band_mad.is_some()) {
         robust_z(
             &idx.iter()
-                .map(|&c| stats[c].noise_ratio.unwrap_or(0.0))
+                .map(|&c| log_amplitude(stats[c].high_band_mad.unwrap_or(0.0)))
                 .collect::<Vec<_>>(),
         )
     } else {
         vec![None; idx.len()]
     };
     for (k, &c) in idx.iter().enumerate() {
-        out[c] = if dev[k].is_some_and(|z| z.abs() > opts.z_threshold) {
+        out[c] = if dev[k].is_some_and(|z| z.abs() > opts.amplitude_z) {
             Some(Reason::AmplitudeOutlier)
-        } else if noise[k].is_some_and(|z| z > opts.z_threshold) {
+        } else if broadband[k].is_some_and(|z| z > opts.broadband_z) {
             Some(Reason::BroadbandExcess)
         } else if idx.len() > 1 && stats[c].max_correlation < opts.min_correlation {
             Some(Reason::Isolated)
@@ -249,7 +262,7 @@ mod tests {
             non_finite: 0,
             rail_fraction: 0.0,
             robust_sd: 10.0,
-            noise_ratio: Some(0.1),
+            high_band_mad: Some(0.1),
             max_correlation: 0.9,
         };
         let mut stats: Vec<ChannelStats> = (0..12)

@@ -145,7 +145,7 @@ impl Extraction {
             }
             let counts: Vec<String> = by_reason.iter().map(|(r, n)| format!("{r} {n}")).collect();
             return Err(crate::LacunaError::Unsupported(format!(
-                "every channel of all {} epochs was masked ({} cells: {}), so no trial is left. Loosen the rules (--z-threshold, --min-correlation, --flat-ratio, --rail-fraction), turn detection off with --no-detect, or look at the epochs with --mask-report",
+                "every channel of all {} epochs was masked ({} cells: {}), so no trial is left. Loosen the rules (--amplitude-z, --broadband-z, --min-correlation, --flat-ratio, --rail-fraction), turn detection off with --no-detect, or look at the epochs with --mask-report",
                 self.epochs.len(),
                 self.masked.len(),
                 if counts.is_empty() {
@@ -282,9 +282,9 @@ fn design_filters(
         None => None,
     };
     let highpass = butterworth(4, Band::Highpass(opts.detect.highpass_hz), fs)?;
-    let (lowpass, note) = if opts.detect.noise_cut_hz * 1.2 < fs / 2.0 {
+    let (lowpass, note) = if opts.detect.split_hz * 1.2 < fs / 2.0 {
         (
-            Some(butterworth(4, Band::Lowpass(opts.detect.noise_cut_hz), fs)?),
+            Some(butterworth(4, Band::Lowpass(opts.detect.split_hz), fs)?),
             None,
         )
     } else {
@@ -292,7 +292,7 @@ fn design_filters(
             None,
             Some(format!(
                 "sampling rate {fs} Hz is too low to separate noise above {} Hz: the high-frequency-noise rule was skipped",
-                opts.detect.noise_cut_hz
+                opts.detect.split_hz
             )),
         )
     };
@@ -552,22 +552,16 @@ fn measure_epoch(
         .iter()
         .map(|sig| {
             let d = &sig.detect[j][..];
-            let noise_ratio = sig.low.as_ref().map(|l| {
-                let l = &l[j][..];
-                let h: Vec<f64> = d.iter().zip(l).map(|(a, b)| a - b).collect();
-                let denom = mad(l, &mut scratch);
-                let num = mad(&h, &mut scratch);
-                if denom > 0.0 {
-                    num / denom
-                } else {
-                    f64::INFINITY
-                }
+            // Amplitude above the split: the epoch minus its low-passed copy.
+            let high_band_mad = sig.low.as_ref().map(|l| {
+                let h: Vec<f64> = d.iter().zip(&l[j][..]).map(|(a, b)| a - b).collect();
+                mad(&h, &mut scratch)
             });
             ChannelStats {
                 non_finite: sig.non_finite[j],
                 rail_fraction: sig.rail_fraction[j],
                 robust_sd: robust_sd(d, &mut scratch),
-                noise_ratio,
+                high_band_mad,
                 max_correlation: 0.0,
             }
         })

@@ -51,6 +51,20 @@ impl Fault {
     }
 }
 
+/// How fault runs meet the clean data around them.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FaultLayout {
+    /// Runs of 2–8 trials that start and end in the gaps between epochs,
+    /// with 0.35 s raised-cosine fades: the default study.
+    InGaps,
+    /// Runs of 1–4 trials that start and end exactly at epoch boundaries
+    /// with no fade, plus one-epoch flat runs on otherwise clean channels.
+    /// With back-to-back epochs (trial interval = epoch length, offset 0) a
+    /// fault's step sits right against the clean epoch next to it: the case
+    /// where filtering across epochs used to leak a fault into a neighbour.
+    AtEpochEdges,
+}
+
 /// Parameters of the scenario.
 #[derive(Debug, Clone)]
 pub struct RecordingParams {
@@ -69,6 +83,8 @@ pub struct RecordingParams {
     pub dropout_scale: f64,
     /// Some lost runs are NaN samples instead of flat lines.
     pub nan_faults: bool,
+    /// Where fault runs sit relative to the epochs.
+    pub fault_layout: FaultLayout,
     /// Analysis band for the ground-truth covariance.
     pub band: Option<(f64, f64)>,
     pub band_order: usize,
@@ -90,6 +106,7 @@ impl Default for RecordingParams {
             lead: 3.0,
             dropout_scale: 1.0,
             nan_faults: false,
+            fault_layout: FaultLayout::InGaps,
             band: Some((8.0, 30.0)),
             band_order: 4,
             range_uv: 500.0,
@@ -397,8 +414,18 @@ pub fn simulate_recording(params: &RecordingParams) -> crate::Result<SimulatedSt
         for c in 0..p {
             let mut t = 0;
             while t < n_trials {
+                let edges = params.fault_layout == FaultLayout::AtEpochEdges;
+                if edges && rng.uniform() < 0.01 * params.dropout_scale {
+                    cell[t][c] = Some(Fault::Flat);
+                    t += 2;
+                    continue;
+                }
                 if rng.uniform() < 0.02 * params.dropout_scale {
-                    let len = 2 + rng.below(7);
+                    let len = if edges {
+                        1 + rng.below(4)
+                    } else {
+                        2 + rng.below(7)
+                    };
                     let kind = match rng.below(3) {
                         0 if params.nan_faults => Fault::Lost,
                         0 => Fault::Flat,
@@ -479,9 +506,20 @@ fn apply_faults(
         while end < cell.len() && cell[end][c] == Some(kind) {
             end += 1;
         }
-        let a = ((cues[t] + 0.1) * fs) as usize;
-        let b = (((cues[end - 1] + params.trial_interval - 0.1) * fs) as usize).min(n);
-        let fade = (0.35 * fs) as usize;
+        let (a, b, fade) = match params.fault_layout {
+            FaultLayout::InGaps => (
+                ((cues[t] + 0.1) * fs) as usize,
+                (((cues[end - 1] + params.trial_interval - 0.1) * fs) as usize).min(n),
+                (0.35 * fs) as usize,
+            ),
+            // Exactly the epochs' samples (the same rounding as plan_epochs).
+            FaultLayout::AtEpochEdges => {
+                let start = ((cues[t] + params.epoch_offset) * fs).round() as usize;
+                let last = ((cues[end - 1] + params.epoch_offset) * fs).round() as usize;
+                let len = (params.epoch_length * fs).round() as usize;
+                (start, (last + len).min(n), 0)
+            }
+        };
         let weight = |i: usize| -> f64 {
             let k = i - a;
             let from_end = b - 1 - i;
