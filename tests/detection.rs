@@ -326,6 +326,9 @@ fn sweep_point(
     n
 }
 
+/// A rule's name and its (threshold, false-alarm rate, hit rate) points.
+type RocCurve = (&'static str, Vec<(f64, f64, f64)>);
+
 /// One rule's sweep: its threshold values, and the detection options for each.
 struct RuleSweep {
     rule: &'static str,
@@ -479,7 +482,7 @@ fn threshold_sweep() {
         let precision = n[0] as f64 / (n[0] + n[1]).max(1) as f64;
         (tpr, fpr, precision)
     };
-    let mut curves: Vec<(&str, Vec<(f64, f64, f64)>)> = Vec::new();
+    let mut curves: Vec<RocCurve> = Vec::new();
     println!(
         "| rule | option | value | faulty masked (TPR) | clean masked (FPR) | precision | F1 |"
     );
@@ -572,7 +575,7 @@ fn threshold_sweep() {
 
 /// ROC curves as an SVG: false-alarm rate on a log axis (1e-5 to 1), hit rate
 /// on a linear axis from 0.5 to 1; the defaults' operating point as a ring.
-fn roc_svg(curves: &[(&str, Vec<(f64, f64, f64)>)], defaults: (f64, f64)) -> String {
+fn roc_svg(curves: &[RocCurve], defaults: (f64, f64)) -> String {
     let (w, h, left, top, right, bottom) = (640.0, 420.0, 70.0, 20.0, 190.0, 50.0);
     let (pw, ph) = (w - left - right, h - top - bottom);
     let x = |fpr: f64| left + pw * ((fpr.max(1e-5).log10() + 5.0) / 5.0);
