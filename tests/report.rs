@@ -125,6 +125,51 @@ fn report_is_well_formed_and_self_contained() {
     assert!(html.contains("Recommended: airm-observed"));
 }
 
+// Every column of every table compare writes, and every validation protocol,
+// is defined in the one glossary that --help and the page print; the page
+// shows it with the data's unit (µV² for the demo's EDF in µV).
+#[test]
+fn every_column_is_defined_on_the_page_and_in_help() {
+    use lacuna::report::glossary::{COMPARE, defines};
+    let (path, html) = demo_report();
+    let cmp = path.parent().unwrap().join("cmp");
+    for file in ["comparison.csv", "validation.csv", "contributions.csv"] {
+        let text = std::fs::read_to_string(cmp.join(file)).unwrap();
+        for col in text.lines().next().unwrap().split(',') {
+            assert!(defines(COMPARE, col), "{file}: column {col} is not defined");
+        }
+        if file == "validation.csv" {
+            for row in text.lines().skip(1) {
+                let protocol = row.split(',').next().unwrap();
+                assert!(
+                    defines(COMPARE, protocol),
+                    "protocol {protocol} is not defined"
+                );
+            }
+        }
+    }
+    assert!(html.contains("What the numbers mean"));
+    for t in COMPARE {
+        assert!(
+            html.contains(&format!("<code>{}</code>", t.column)),
+            "{} not on the page",
+            t.column
+        );
+    }
+    assert!(html.contains(
+        "variance_q05, variance_q95</code> <span class=\"where\">(contributions.csv; µV²)"
+    ));
+    let (code, help, _) = lacuna(&["compare", "--help"]);
+    assert_eq!(code, 0);
+    for t in COMPARE {
+        assert!(
+            help.contains(&format!("    {} [", t.column)),
+            "{} not in --help",
+            t.column
+        );
+    }
+}
+
 fn find_browser() -> Option<String> {
     ["chromium", "chromium-browser", "google-chrome"]
         .iter()

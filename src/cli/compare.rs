@@ -23,13 +23,18 @@ use lacuna::{LacunaError, Result, SchemeOptions};
 use rayon::prelude::*;
 use serde_json::json;
 
-#[derive(Args, Debug)]
-#[command(after_help = "Example (after `lacuna extract … --out trials`):
+const EXAMPLE: &str = "Example (after `lacuna extract … --out trials`):
   lacuna compare --covs trials/covs.npy --mask trials/mask.csv --labels trials/labels.csv \\
                  --positions demo-data/recording/positions.csv --out comparison
 
 Writes comparison/means/<scheme>.npy and .csv, comparison.csv, distances.csv,
-validation.csv, contributions.csv and compare.json.")]
+validation.csv, contributions.csv and compare.json.";
+
+#[derive(Args, Debug)]
+#[command(
+    after_help = format!("{EXAMPLE}\n\n`--help` (not -h) also defines every column of those tables."),
+    after_long_help = format!("{EXAMPLE}\n\n{}", lacuna::report::glossary::help_text(lacuna::report::glossary::COMPARE))
+)]
 pub struct CompareArgs {
     /// What the mean is for: `centre` (the Riemannian centre, for
     /// minimum-distance decoding and re-centring; a common scale factor is

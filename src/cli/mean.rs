@@ -14,6 +14,10 @@ use lacuna::trials::io::load_trial_set;
 use lacuna::{LacunaError, Result, SchemeOptions, scheme_by_name};
 
 #[derive(Args, Debug)]
+#[command(
+    after_help = "`--help` (not -h) also defines the figures the report gives.",
+    after_long_help = lacuna::report::glossary::help_text(lacuna::report::glossary::MEAN)
+)]
 pub struct MeanArgs {
     /// Physical unit of the data the covariances came from (e.g. µV); the
     /// report gives covariances in its square. compare takes it from

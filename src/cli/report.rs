@@ -6,11 +6,17 @@ use clap::Args;
 use lacuna::trials::npy::write_atomic;
 use lacuna::{LacunaError, Result};
 
-#[derive(Args, Debug)]
-#[command(after_help = "Example:
+const EXAMPLE: &str = "Example:
   lacuna report --compare comparison --epochs trials/epochs.json --out report.html
 
-The page has no scripts and fetches nothing: open it offline, mail it, print it.")]
+The page has no scripts and fetches nothing: open it offline, mail it, print it.
+It defines every number it shows; `--help` (not -h) lists the same definitions.";
+
+#[derive(Args, Debug)]
+#[command(
+    after_help = EXAMPLE,
+    after_long_help = format!("{EXAMPLE}\n\n{}", lacuna::report::glossary::help_text(lacuna::report::glossary::COMPARE))
+)]
 pub struct ReportArgs {
     /// The output folder of `lacuna compare` (reads compare.json).
     #[arg(long, value_name = "DIR")]

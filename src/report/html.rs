@@ -31,6 +31,10 @@ table { border-collapse: collapse; font-size: 13px; }
 th, td { border-bottom: 1px solid var(--rule); padding: 3px 8px; text-align: right; }
 th:first-child, td:first-child { text-align: left; }
 svg { max-width: 100%; height: auto; }
+dl.glossary { max-width: 900px; margin: 6px 0; }
+dl.glossary dt { margin-top: 8px; }
+dl.glossary .where { color: var(--muted); font-size: 13px; }
+dl.glossary dd { margin: 2px 0 0 18px; }
 svg text { font-family: system-ui, -apple-system, "Segoe UI", Roboto, "Noto Sans", sans-serif; fill: var(--ink); }
 svg .tick { font-size: 10px; fill: var(--muted); }
 svg .axis-label { font-size: 12px; }
@@ -500,6 +504,14 @@ fn figure(svg: &str, caption: &str) -> String {
 }
 
 /// Renders the report from compare.json (and, optionally, epochs.json).
+/// The covariance unit: compare.json's, else the epochs.json's (extract read
+/// it from the recording), else none.
+fn covariance_unit<'a>(compare: &'a Value, epochs: Option<&'a Value>) -> Option<&'a str> {
+    compare["covariance_unit"]
+        .as_str()
+        .or_else(|| epochs.and_then(|e| e["covariance_unit"].as_str()))
+}
+
 pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     let names = strings(&compare["channels"]);
     let p = names.len();
@@ -616,9 +628,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
         .filter(|s| s["status"] == "ok")
         .collect();
     // The covariance unit when the inputs named one (EDF header or --unit).
-    let cov_unit = compare["covariance_unit"]
-        .as_str()
-        .map_or("data units²".to_string(), escape);
+    let cov_unit = covariance_unit(compare, epochs).map_or("data units²".to_string(), escape);
     let means: Vec<(String, Vec<Vec<f64>>)> = rows
         .iter()
         .filter_map(|s| Some((s["scheme"].as_str()?.to_string(), matrix(&s["mean"])?)))
@@ -831,6 +841,13 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     }
     t.push_str("</table>");
     body.push_str(&section("All schemes", &t));
+    body.push_str(&section(
+        "What the numbers mean",
+        &format!(
+            "<p class=\"note\">Every column of the tables above and of the CSV files beside compare.json, with its unit. Distances are affine-invariant: unit-free, and unchanged when every channel is rescaled.</p>{}",
+            super::glossary::html(super::glossary::COMPARE, covariance_unit(compare, epochs))
+        ),
+    ));
     // Where the page came from (read from compare.json, drawn as given).
     let prov = &compare["provenance"];
     if prov.is_object() {

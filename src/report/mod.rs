@@ -8,6 +8,7 @@
 pub mod colors;
 pub mod compare_check;
 pub mod epochs_check;
+pub mod glossary;
 pub mod html;
 pub mod json;
 pub mod provenance;

@@ -813,6 +813,64 @@ fn ties(order: &[&Score]) -> Vec<String> {
         .collect()
 }
 
+/// For schemes tied on the primary protocol: what each other protocol says
+/// about them — ties them too, narrows them, or separates one.
+fn tie_evidence(
+    tied: &[String],
+    primary: &str,
+    fit: Option<&HeldOutFit>,
+    dec: Option<&Decoding>,
+) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut others: Vec<(&str, &[Score], bool)> = Vec::new();
+    if primary != "held-out-fit"
+        && let Some(f) = fit
+    {
+        others.push(("Held-out fit", &f.scores, true));
+    }
+    if let Some(d) = dec {
+        others.push(("Decoding", &d.scores, false));
+    }
+    for (name, scores, lower_is_better) in others {
+        let among: Vec<&Score> = ranked(scores, lower_is_better)
+            .into_iter()
+            .filter(|s| tied.contains(&s.candidate))
+            .collect();
+        if among.len() < 2 {
+            continue;
+        }
+        let still = if lower_is_better {
+            ties(&among)
+        } else {
+            // Higher is better: mirror the interval test.
+            let b = among[0].spread.unwrap_or(Spread::EMPTY);
+            among
+                .iter()
+                .filter(|s| s.spread.is_some_and(|x| x.q3 >= b.q1 - 1e-4))
+                .map(|s| s.candidate.clone())
+                .collect()
+        };
+        out.push(if still.len() == among.len() {
+            format!(
+                "{name} ties them too (interquartile ranges overlap): the evidence does not separate {}.",
+                still.join(", ")
+            )
+        } else if still.len() == 1 {
+            format!(
+                "{name} separates them: {} is best among the tied schemes (median {:.4}) and its interquartile range is clear of the others'.",
+                still[0],
+                median_of(among[0])
+            )
+        } else {
+            format!(
+                "{name} narrows the tie to {} (the others' ranges are clear of the best).",
+                still.join(", ")
+            )
+        });
+    }
+    out
+}
+
 fn failures_and_partials(scores: &[Score], channels: usize, reasons: &mut Vec<String>) {
     let partial: Vec<String> = scores
         .iter()
@@ -955,6 +1013,9 @@ pub fn recommend(
             )
         });
     }
+    if !clear {
+        reasons.extend(tie_evidence(&tied, primary, fit, dec));
+    }
     if let Some(d) = dropout
         && !d.left_out.is_empty()
     {
@@ -1046,5 +1107,98 @@ pub fn recommend(
         clear,
         tied,
         reasons,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn score(name: &str, median: f64, q1: f64, q3: f64) -> Score {
+        Score {
+            candidate: name.into(),
+            spread: Some(Spread {
+                median,
+                q1,
+                q3,
+                n: 5,
+            }),
+            partial: None,
+            failures: 0,
+            failure_reason: None,
+        }
+    }
+
+    fn dropout(scores: Vec<Score>) -> DropoutValidation {
+        DropoutValidation {
+            channels: vec!["a".into(), "b".into()],
+            left_out: vec![],
+            complete_trials: 40,
+            trials_per_repeat: 40,
+            repeats: 5,
+            target: Target::Centre,
+            scores,
+        }
+    }
+
+    fn decoding(scores: Vec<Score>) -> Decoding {
+        Decoding {
+            folds: 5,
+            classes: vec!["x".into(), "y".into()],
+            chance: 0.5,
+            scores,
+        }
+    }
+
+    // Overlapping interquartile ranges are a tie (common practice, no source);
+    // the reasons must say what the other protocols make of the tied schemes.
+    #[test]
+    fn a_tie_names_the_evidence_that_separates_or_ties() {
+        let d = dropout(vec![
+            score("p", 0.10, 0.08, 0.12),
+            score("q", 0.11, 0.09, 0.13),
+            score("r", 0.50, 0.45, 0.55),
+        ]);
+        // Decoding separates p and q (q clearly higher accuracy).
+        let sep = decoding(vec![
+            score("p", 0.70, 0.65, 0.72),
+            score("q", 0.90, 0.85, 0.95),
+            score("r", 0.95, 0.90, 1.0),
+        ]);
+        let r = recommend(Some(&d), None, Some(&sep), Target::Centre, 2);
+        assert!(!r.clear);
+        assert_eq!(r.tied, vec!["p".to_string(), "q".to_string()]);
+        assert!(
+            r.reasons
+                .iter()
+                .any(|s| s.starts_with("Decoding separates them: q is best")),
+            "{:?}",
+            r.reasons
+        );
+        // Decoding ties them as well.
+        let tie = decoding(vec![
+            score("p", 0.80, 0.75, 0.85),
+            score("q", 0.82, 0.78, 0.86),
+        ]);
+        let r = recommend(Some(&d), None, Some(&tie), Target::Centre, 2);
+        assert!(
+            r.reasons
+                .iter()
+                .any(|s| s.starts_with("Decoding ties them too") && s.contains("separate q, p.")),
+            "{:?}",
+            r.reasons
+        );
+        // A clear winner gets no tie sentence.
+        let clear = dropout(vec![
+            score("p", 0.10, 0.08, 0.12),
+            score("q", 0.30, 0.25, 0.35),
+        ]);
+        let r = recommend(Some(&clear), None, Some(&tie), Target::Centre, 2);
+        assert!(r.clear);
+        assert!(
+            !r.reasons
+                .iter()
+                .any(|s| s.contains("ties them") || s.contains("separates them"))
+        );
     }
 }
