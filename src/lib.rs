@@ -22,6 +22,7 @@
 pub mod diagnose;
 pub mod error;
 pub mod ingest;
+pub mod jobs;
 pub mod limits;
 pub mod output;
 pub mod report;

@@ -3,15 +3,11 @@
 use std::io::IsTerminal;
 use std::path::PathBuf;
 use std::sync::Arc;
-use std::time::Instant;
 
 use clap::Args;
-use lacuna::diagnose::{identifiability, summarize};
-use lacuna::report::json::MeanReport;
-use lacuna::schemes::InitRule;
-use lacuna::solve::StopRule;
+use lacuna::jobs::MeanJob;
 use lacuna::trials::io::load_trial_set;
-use lacuna::{LacunaError, Result, SchemeOptions, scheme_by_name};
+use lacuna::{LacunaError, Result};
 
 #[derive(Args, Debug)]
 #[command(
@@ -113,35 +109,46 @@ pub struct MeanArgs {
 }
 
 pub fn run(a: MeanArgs) -> Result<i32> {
-    let scheme = scheme_by_name(&a.scheme).ok_or_else(|| {
-        let names: Vec<&str> = lacuna::all_schemes().iter().map(|s| s.name()).collect();
-        let hint = lacuna::schemes::closest_scheme_name(&a.scheme)
-            .map(|n| format!(" (did you mean '{n}'?)"))
-            .unwrap_or_default();
-        LacunaError::InvalidOption(format!(
-            "unknown scheme '{}'{hint}; choose one of: {}",
-            a.scheme,
-            names.join(", ")
-        ))
-    })?;
-    let init = InitRule::from_name(&a.init).ok_or_else(|| {
-        LacunaError::InvalidOption(format!(
-            "unknown --init '{}'; choose available-case, diagonal or scaled-identity",
-            a.init
-        ))
-    })?;
     use super::ranges::{float_in, int_in};
-    float_in("--tol", a.tol, 1e-300, 0.1)?;
-    int_in("--max-iter", a.max_iter, 1, 1_000_000)?;
-    int_in("--starts", a.starts, 1, 1000)?;
-    float_in("--loading", a.loading, 1e-300, 1e6)?;
-    float_in("--shrinkage", a.shrinkage, 1e-300, 1.0)?;
+    use lacuna::jobs::mean::ranges as r;
+    // Flag names in messages here; the job checks the same ranges again by
+    // its own parameter names (for library and Python callers).
+    float_in("--tol", a.tol, r::TOL.0, r::TOL.1)?;
+    int_in("--max-iter", a.max_iter, r::MAX_ITER.0, r::MAX_ITER.1)?;
+    int_in("--starts", a.starts, r::STARTS.0, r::STARTS.1)?;
+    float_in("--loading", a.loading, r::LOADING.0, r::LOADING.1)?;
+    float_in("--shrinkage", a.shrinkage, r::SHRINKAGE.0, r::SHRINKAGE.1)?;
     if let Some(t) = a.samples {
-        int_in("--samples", t, 2, 1_000_000_000)?;
+        int_in("--samples", t, r::SAMPLES.0, r::SAMPLES.1)?;
     }
-    if let Some(r) = a.rank {
-        int_in("--rank", r, 1, 100_000)?;
+    if let Some(k) = a.rank {
+        int_in("--rank", k, r::RANK.0, r::RANK.1)?;
     }
+    let mut job = MeanJob {
+        scheme: a.scheme.clone(),
+        tol: a.tol,
+        max_iter: a.max_iter,
+        init: a.init.clone(),
+        starts: a.starts,
+        seed: a.seed,
+        loading: a.loading,
+        shrinkage: a.shrinkage,
+        samples: a.samples,
+        rank: a.rank,
+        positions: None,
+        correct_scale: a.correct_scale,
+        effective_samples: a.effective_samples,
+        regularize: a.regularize.clone(),
+        drop_unobserved: a.drop_unobserved,
+        unit: a.unit.clone(),
+    };
+    // Settings are checked before any file is read.
+    job.options(None).map_err(|e| match e {
+        LacunaError::InvalidOption(m) if m.starts_with("unknown init") => {
+            LacunaError::InvalidOption(m.replacen("unknown init", "unknown --init", 1))
+        }
+        other => other,
+    })?;
     {
         let mut inputs: Vec<(&str, &std::path::Path)> = vec![("--covs", &a.covs)];
         for (o, p) in [
@@ -159,25 +166,19 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         }
         lacuna::output::check_paths(&inputs, &outputs, &[])?;
     }
-    let started = Instant::now();
     // The stack is read block by block, then worked on: peak resident memory
     // measured at 1.5× the file (20 000 trials × 32 channels: 238 MB for a
     // 156 MB stack); 2× leaves a margin.
     if let Ok(m) = std::fs::metadata(&a.covs) {
         lacuna::limits::check_fits("lacuna mean", 2 * m.len(), rayon::current_num_threads())?;
     }
-    let mut set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
-    set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
-    let mut dropped = Vec::new();
-    let mut ident = identifiability(&set);
-    if a.drop_unobserved && !ident.never_observed.is_empty() {
-        dropped = ident
-            .never_observed
-            .iter()
-            .map(|&c| set.channels()[c].clone())
-            .collect();
-        set = set.without_channels(&ident.never_observed)?;
-        ident = identifiability(&set);
+    let set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
+    let set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
+    if let Some(path) = &a.positions {
+        job.positions = Some(super::positions_by_name(
+            lacuna::trials::io::read_positions(path, set.channels())?,
+            set.channels(),
+        ));
     }
     let show_progress = !a.quiet && std::io::stderr().is_terminal();
     let observer: Option<lacuna::schemes::Observer> = if show_progress {
@@ -190,68 +191,17 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     } else {
         None
     };
-    let options = SchemeOptions {
-        stop: StopRule {
-            tol: a.tol,
-            max_iter: a.max_iter,
-        },
-        init,
-        starts: a.starts,
-        seed: a.seed,
-        observer,
-        loading: a.loading,
-        shrinkage: a.shrinkage,
-        samples: a.samples,
-        rank: a.rank,
-        positions: match &a.positions {
-            Some(path) => Some(Arc::new(super::positions_by_name(
-                lacuna::trials::io::read_positions(path, set.channels())?,
-                set.channels(),
-            ))),
-            None => None,
-        },
-        warm_start: None,
-        scale_correction: if a.correct_scale {
-            Some(super::degrees_of_freedom(a.samples, a.effective_samples)?)
-        } else {
-            None
-        },
-        regularize: match &a.regularize {
-            Some(spec) => Some(
-                lacuna::schemes::regularize::Regularizer::parse(spec, a.samples)
-                    .map_err(|e| LacunaError::InvalidOption(format!("--regularize {e}")))?,
-            ),
-            None => None,
-        },
-    };
-    let result = scheme.average(&set, &options)?;
+    let run = job.run(set, observer)?;
     if show_progress {
         eprintln!();
     }
-    let elapsed = started.elapsed().as_secs_f64();
+    let (set, result, summary) = (&run.set, &run.result, &run.summary);
     let mean_bytes = lacuna::trials::io::encode_matrix(&a.out, &result.published(), set.channels());
-    let summary = summarize(&set, &result.mean);
-    let report = MeanReport::new(
-        &result,
-        &ident,
-        &summary,
-        set.channels(),
-        set.len(),
-        dropped.clone(),
-        elapsed,
-        rayon::current_num_threads(),
-    );
-    let ranks = lacuna::diagnose::rank_table(&set, a.samples);
-    let mut report = report;
-    report.ranks = Some(&ranks);
     let mut input_paths: Vec<&std::path::Path> = vec![&a.covs];
     for p in [&a.mask, &a.weights, &a.positions].into_iter().flatten() {
         input_paths.push(p);
     }
-    report.provenance = Some(lacuna::report::provenance::provenance(&input_paths)?);
-    report.unit = a.unit.as_deref().map(super::display_unit);
-    report.covariance_unit = super::covariance_unit(a.unit.as_deref());
-    report.regularizer = options.regularize;
+    let report = run.report(Some(lacuna::report::provenance::provenance(&input_paths)?));
     let json = report.to_json();
     // The mean and its report are staged together and renamed together: a
     // failing report never leaves a new mean beside an old report.
@@ -272,19 +222,19 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             set.n_channels(),
             result.scheme
         );
-        if let Some(line) = ranks.summary_line() {
+        if let Some(line) = run.ranks.summary_line() {
             eprintln!(
                 "  {line}{}",
-                match options.regularize {
+                match run.regularizer {
                     Some(r) => format!("; regularised first by {}", r.label()),
                     None => String::new(),
                 }
             );
         }
-        if !dropped.is_empty() {
+        if !run.dropped.is_empty() {
             eprintln!(
                 "  dropped channels observed in no trial: {}",
-                dropped.join(", ")
+                run.dropped.join(", ")
             );
         }
         if d.iterative {
@@ -312,8 +262,8 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             a.out.display()
         );
     }
-    if !d.converged {
-        for line in report.advice {
+    if !run.converged() {
+        for line in &report.advice {
             eprintln!("warning: {line}");
         }
         return Ok(4);

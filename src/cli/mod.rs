@@ -132,23 +132,7 @@ pub fn run() -> i32 {
     }
 }
 
-/// Degrees of freedom for the scale-bias correction: `--effective-samples`
-/// when given, else `--samples` minus one (windows centred on their mean).
-pub fn degrees_of_freedom(samples: Option<usize>, effective: Option<f64>) -> lacuna::Result<f64> {
-    match (effective, samples) {
-        (Some(n), _) if n.is_finite() && n > 0.0 && n <= 1e9 => Ok(n),
-        (Some(n), _) => Err(lacuna::LacunaError::InvalidOption(format!(
-            "--effective-samples must be a positive number up to 1e9, got {n}"
-        ))),
-        (None, Some(t)) if t >= 2 => Ok((t - 1) as f64),
-        (None, Some(t)) => Err(lacuna::LacunaError::InvalidOption(format!(
-            "--samples must be at least 2 for the scale-bias correction, got {t}"
-        ))),
-        (None, None) => Err(lacuna::LacunaError::InvalidOption(
-            "--correct-scale needs the samples per window: add --samples T (or --effective-samples N)".into(),
-        )),
-    }
-}
+pub use lacuna::jobs::mean::{covariance_unit, degrees_of_freedom, display_unit};
 
 /// Channel names from `--channels`: a comma-separated list, or a file holding
 /// the names (one per line or comma-separated). A CSV mask's header, when
@@ -192,21 +176,4 @@ pub fn apply_channel_names(
         )));
     }
     set.with_channel_names(names, &source)
-}
-
-/// A physical unit as shown: EDF's ASCII "uV" is written µV.
-pub fn display_unit(u: &str) -> String {
-    let u = u.trim();
-    match u.strip_prefix('u') {
-        Some(rest) if !rest.is_empty() && rest.chars().all(|c| c.is_ascii_alphabetic()) => {
-            format!("µ{rest}")
-        }
-        _ => u.to_string(),
-    }
-}
-
-/// The covariance unit of data in `unit` (its square), if known.
-pub fn covariance_unit(unit: Option<&str>) -> Option<String> {
-    unit.filter(|u| !u.trim().is_empty())
-        .map(|u| format!("{}²", display_unit(u)))
 }

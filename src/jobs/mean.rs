@@ -1,0 +1,297 @@
+//! The mean job: one scheme on one trial set, with its diagnostics and the
+//! report. `lacuna mean` and the Python package's `lacuna.mean` both run
+//! [`MeanJob::run`], so they give the same mean bit for bit.
+
+use std::collections::BTreeMap;
+use std::sync::Arc;
+use std::time::Instant;
+
+use serde::{Deserialize, Serialize};
+
+use crate::diagnose::summary::MeanSummary;
+use crate::diagnose::{Identifiability, RankTable, identifiability, rank_table, summarize};
+use crate::report::json::MeanReport;
+use crate::report::provenance::Provenance;
+use crate::schemes::regularize::Regularizer;
+use crate::schemes::{InitRule, Observer};
+use crate::solve::StopRule;
+use crate::trials::TrialSet;
+use crate::{LacunaError, MeanResult, Result, SchemeOptions, scheme_by_name};
+
+/// Accepted ranges of the numeric settings (inclusive). The CLI states and
+/// checks the same ranges under its flag names.
+pub mod ranges {
+    pub const TOL: (f64, f64) = (1e-300, 0.1);
+    pub const MAX_ITER: (usize, usize) = (1, 1_000_000);
+    pub const STARTS: (usize, usize) = (1, 1000);
+    pub const LOADING: (f64, f64) = (1e-300, 1e6);
+    pub const SHRINKAGE: (f64, f64) = (1e-300, 1.0);
+    pub const SAMPLES: (usize, usize) = (2, 1_000_000_000);
+    pub const RANK: (usize, usize) = (1, 100_000);
+    pub const EFFECTIVE_SAMPLES: (f64, f64) = (1e-300, 1e9);
+}
+
+/// What to compute: the scheme and its settings, with the CLI's defaults.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(default)]
+pub struct MeanJob {
+    /// Averaging scheme name (`lacuna schemes`).
+    pub scheme: String,
+    /// Stop when the whitened Riemannian gradient norm is at or below this.
+    pub tol: f64,
+    pub max_iter: usize,
+    /// Starting point of airm-observed: available-case, diagonal, scaled-identity.
+    pub init: String,
+    /// Starts of the multi-start check (1 = off).
+    pub starts: usize,
+    pub seed: u64,
+    /// λ of diagonal-loading.
+    pub loading: f64,
+    /// α of shrinkage.
+    pub shrinkage: f64,
+    /// Samples per trial, when known.
+    pub samples: Option<usize>,
+    /// Rank of subspace.
+    pub rank: Option<usize>,
+    /// Electrode positions by channel name (spherical-spline).
+    pub positions: Option<BTreeMap<String, [f64; 3]>>,
+    /// Remove the short-window scale bias (airm-observed, airm).
+    pub correct_scale: bool,
+    /// Degrees of freedom for `correct_scale`, when not samples − 1.
+    pub effective_samples: Option<f64>,
+    /// Regulariser applied to every block first (`shrinkage:α`, `loading:λ`, `oas`).
+    pub regularize: Option<String>,
+    /// Leave out channels no trial observed instead of refusing.
+    pub drop_unobserved: bool,
+    /// Physical unit of the data (e.g. uV or µV), recorded in the report.
+    pub unit: Option<String>,
+}
+
+impl Default for MeanJob {
+    fn default() -> Self {
+        MeanJob {
+            scheme: "airm-observed".into(),
+            tol: 1e-10,
+            max_iter: 500,
+            init: "available-case".into(),
+            starts: 1,
+            seed: 0,
+            loading: 1e-2,
+            shrinkage: 0.1,
+            samples: None,
+            rank: None,
+            positions: None,
+            correct_scale: false,
+            effective_samples: None,
+            regularize: None,
+            drop_unobserved: false,
+            unit: None,
+        }
+    }
+}
+
+fn float_in(name: &str, v: f64, (lo, hi): (f64, f64)) -> Result<()> {
+    if v.is_finite() && v >= lo && v <= hi {
+        Ok(())
+    } else {
+        Err(LacunaError::InvalidOption(format!(
+            "{name} must be a finite number between {lo:e} and {hi:e}, got {v}"
+        )))
+    }
+}
+
+fn int_in(name: &str, v: usize, (lo, hi): (usize, usize)) -> Result<()> {
+    if v >= lo && v <= hi {
+        Ok(())
+    } else {
+        Err(LacunaError::InvalidOption(format!(
+            "{name} must be between {lo} and {hi}, got {v}"
+        )))
+    }
+}
+
+/// Degrees of freedom for the scale-bias correction: `effective` when given,
+/// else `samples − 1` (windows centred on their mean).
+pub fn degrees_of_freedom(samples: Option<usize>, effective: Option<f64>) -> Result<f64> {
+    match (effective, samples) {
+        (Some(n), _) if n.is_finite() && n > 0.0 && n <= ranges::EFFECTIVE_SAMPLES.1 => Ok(n),
+        (Some(n), _) => Err(LacunaError::InvalidOption(format!(
+            "--effective-samples must be a positive number up to 1e9, got {n}"
+        ))),
+        (None, Some(t)) if t >= 2 => Ok((t - 1) as f64),
+        (None, Some(t)) => Err(LacunaError::InvalidOption(format!(
+            "--samples must be at least 2 for the scale-bias correction, got {t}"
+        ))),
+        (None, None) => Err(LacunaError::InvalidOption(
+            "--correct-scale needs the samples per window: add --samples T (or --effective-samples N)".into(),
+        )),
+    }
+}
+
+/// A unit as shown: `uV` becomes `µV` (EDF headers spell micro with a u).
+pub fn display_unit(u: &str) -> String {
+    let u = u.trim();
+    match u.strip_prefix('u') {
+        Some(rest) if !rest.is_empty() && rest.chars().all(|c| c.is_ascii_alphabetic()) => {
+            format!("µ{rest}")
+        }
+        _ => u.to_string(),
+    }
+}
+
+/// The covariance unit of data in `unit` (its square), if known.
+pub fn covariance_unit(unit: Option<&str>) -> Option<String> {
+    unit.filter(|u| !u.trim().is_empty())
+        .map(|u| format!("{}²", display_unit(u)))
+}
+
+impl MeanJob {
+    /// Checks every setting before any work, and turns names into the
+    /// solver's options. Nothing is silently changed.
+    pub fn options(&self, observer: Option<Observer>) -> Result<SchemeOptions> {
+        if scheme_by_name(&self.scheme).is_none() {
+            let names: Vec<&str> = crate::all_schemes().iter().map(|s| s.name()).collect();
+            let hint = crate::schemes::closest_scheme_name(&self.scheme)
+                .map(|n| format!(" (did you mean '{n}'?)"))
+                .unwrap_or_default();
+            return Err(LacunaError::InvalidOption(format!(
+                "unknown scheme '{}'{hint}; choose one of: {}",
+                self.scheme,
+                names.join(", ")
+            )));
+        }
+        let init = InitRule::from_name(&self.init).ok_or_else(|| {
+            LacunaError::InvalidOption(format!(
+                "unknown init '{}'; choose available-case, diagonal or scaled-identity",
+                self.init
+            ))
+        })?;
+        float_in("tol", self.tol, ranges::TOL)?;
+        int_in("max_iter", self.max_iter, ranges::MAX_ITER)?;
+        int_in("starts", self.starts, ranges::STARTS)?;
+        float_in("loading", self.loading, ranges::LOADING)?;
+        float_in("shrinkage", self.shrinkage, ranges::SHRINKAGE)?;
+        if let Some(t) = self.samples {
+            int_in("samples", t, ranges::SAMPLES)?;
+        }
+        if let Some(r) = self.rank {
+            int_in("rank", r, ranges::RANK)?;
+        }
+        if let Some(pos) = &self.positions {
+            for (name, xyz) in pos {
+                if xyz.iter().any(|v| !v.is_finite()) {
+                    return Err(LacunaError::InvalidOption(format!(
+                        "position of channel {name} is not finite: {xyz:?}"
+                    )));
+                }
+            }
+        }
+        Ok(SchemeOptions {
+            stop: StopRule {
+                tol: self.tol,
+                max_iter: self.max_iter,
+            },
+            init,
+            starts: self.starts,
+            seed: self.seed,
+            observer,
+            loading: self.loading,
+            shrinkage: self.shrinkage,
+            samples: self.samples,
+            rank: self.rank,
+            positions: self.positions.clone().map(Arc::new),
+            warm_start: None,
+            scale_correction: if self.correct_scale {
+                Some(degrees_of_freedom(self.samples, self.effective_samples)?)
+            } else {
+                None
+            },
+            regularize: match &self.regularize {
+                Some(spec) => Some(
+                    Regularizer::parse(spec, self.samples)
+                        .map_err(|e| LacunaError::InvalidOption(format!("--regularize {e}")))?,
+                ),
+                None => None,
+            },
+        })
+    }
+
+    /// Runs the scheme on `set` (after dropping never-observed channels when
+    /// asked). `observer` sees every accepted iteration (progress).
+    pub fn run(&self, set: TrialSet, observer: Option<Observer>) -> Result<MeanRun> {
+        let options = self.options(observer)?;
+        let scheme = scheme_by_name(&self.scheme).expect("checked by options()");
+        let started = Instant::now();
+        let mut set = set;
+        let mut dropped = Vec::new();
+        let mut ident = identifiability(&set);
+        if self.drop_unobserved && !ident.never_observed.is_empty() {
+            dropped = ident
+                .never_observed
+                .iter()
+                .map(|&c| set.channels()[c].clone())
+                .collect();
+            set = set.without_channels(&ident.never_observed)?;
+            ident = identifiability(&set);
+        }
+        let result = scheme.average(&set, &options)?;
+        let elapsed_seconds = started.elapsed().as_secs_f64();
+        let summary = summarize(&set, &result.mean);
+        let ranks = rank_table(&set, self.samples);
+        Ok(MeanRun {
+            set,
+            result,
+            ident,
+            summary,
+            ranks,
+            dropped,
+            elapsed_seconds,
+            regularizer: options.regularize,
+            unit: self.unit.clone(),
+        })
+    }
+}
+
+/// Everything one mean job produced.
+pub struct MeanRun {
+    /// The trial set averaged (without dropped channels).
+    pub set: TrialSet,
+    pub result: MeanResult,
+    pub ident: Identifiability,
+    pub summary: MeanSummary,
+    pub ranks: RankTable,
+    /// Channels left out because no trial observed them.
+    pub dropped: Vec<String>,
+    pub elapsed_seconds: f64,
+    pub regularizer: Option<Regularizer>,
+    pub unit: Option<String>,
+}
+
+impl MeanRun {
+    /// The report (`--report` of `lacuna mean`), with the inputs' provenance
+    /// when they came from files.
+    pub fn report(&self, provenance: Option<Provenance>) -> MeanReport<'_> {
+        let mut report = MeanReport::new(
+            &self.result,
+            &self.ident,
+            &self.summary,
+            self.set.channels(),
+            self.set.len(),
+            self.dropped.clone(),
+            self.elapsed_seconds,
+            rayon::current_num_threads(),
+        );
+        report.ranks = Some(&self.ranks);
+        report.provenance = provenance;
+        report.unit = self.unit.as_deref().map(display_unit);
+        report.covariance_unit = covariance_unit(self.unit.as_deref());
+        report.regularizer = self.regularizer;
+        report
+    }
+
+    /// Whether the result is what the docs say it is (exit 0); otherwise the
+    /// report's advice says why (exit 4).
+    pub fn converged(&self) -> bool {
+        self.result.diagnostics.converged
+    }
+}

@@ -1,0 +1,8 @@
+//! lacuna's main tasks as library calls: what the command line and the
+//! Python package both run, so the two give the same answers. Each job is a
+//! settings struct with the CLI's defaults, checked once before any work,
+//! and a `run` that returns typed results; writing files stays with the caller.
+
+pub mod mean;
+
+pub use mean::{MeanJob, MeanRun};
