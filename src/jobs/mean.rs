@@ -33,7 +33,7 @@ pub mod ranges {
 
 /// What to compute: the scheme and its settings, with the CLI's defaults.
 #[derive(Debug, Clone, Serialize, Deserialize)]
-#[serde(default)]
+#[serde(default, deny_unknown_fields)]
 pub struct MeanJob {
     /// Averaging scheme name (`lacuna schemes`).
     pub scheme: String,

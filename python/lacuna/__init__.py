@@ -1,0 +1,224 @@
+"""lacuna: Riemannian means of channel covariance matrices when trials lose channels.
+
+The Python face of the lacuna command-line tool and Rust library: the same
+computations (bit for bit), called on NumPy arrays.
+
+    >>> import numpy as np, lacuna
+    >>> stack = np.load("trials/covs.npy")          # (N, p, p), NaN where unobserved
+    >>> mean, report = lacuna.mean(stack)           # the masked Riemannian mean
+    >>> report["converged"], report["iterations"]
+
+Research software, not a medical device: results inform analysis; they do
+not diagnose. Follow local rules and licensed clinical practice.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any, Dict, List, Mapping, Optional, Sequence, Tuple
+
+import numpy as np
+
+from . import _lacuna
+from ._lacuna import LacunaError, __version__
+
+__all__ = ["mean", "schemes", "MaskedMean", "LacunaError", "__version__"]
+
+
+def _as_stack(stack: Any) -> np.ndarray:
+    a = np.asarray(stack)
+    if a.dtype.kind not in "fiu":
+        raise TypeError(
+            f"stack must hold real numbers (float or int), got dtype {a.dtype}"
+        )
+    if a.ndim != 3 or a.shape[1] != a.shape[2]:
+        raise LacunaError(
+            f"stack must have shape (trials, channels, channels), got {a.shape}"
+        )
+    if a.shape[0] == 0 or a.shape[1] == 0:
+        raise LacunaError(f"stack is empty: shape {a.shape}")
+    return np.ascontiguousarray(a, dtype=np.float64)
+
+
+def _as_mask(mask: Any, stack: np.ndarray) -> np.ndarray:
+    n, p = stack.shape[:2]
+    if mask is None:
+        # Without a mask, a channel is unobserved where its variance is NaN.
+        return np.ascontiguousarray(~np.isnan(np.diagonal(stack, axis1=1, axis2=2)))
+    m = np.asarray(mask)
+    if m.dtype.kind not in "biu":
+        raise TypeError(f"mask must be boolean or 0/1 integers, got dtype {m.dtype}")
+    if m.shape != (n, p):
+        raise LacunaError(f"mask must have shape {(n, p)} to match the stack, got {m.shape}")
+    if m.dtype.kind != "b":
+        bad = np.argwhere((m != 0) & (m != 1))
+        if bad.size:
+            i, c = bad[0]
+            raise LacunaError(
+                f"mask holds {m[i, c]} at trial {i}, channel {c}; use 1 (observed) or 0"
+            )
+    return np.ascontiguousarray(m.astype(bool))
+
+
+def _as_weights(weights: Any, n: int) -> Optional[np.ndarray]:
+    if weights is None:
+        return None
+    w = np.asarray(weights)
+    if w.dtype.kind not in "fiu":
+        raise TypeError(f"weights must be real numbers, got dtype {w.dtype}")
+    if w.shape != (n,):
+        raise LacunaError(f"weights must have shape {(n,)} to match the stack, got {w.shape}")
+    return np.ascontiguousarray(w, dtype=np.float64)
+
+
+def mean(
+    stack: Any,
+    mask: Any = None,
+    *,
+    scheme: str = "airm-observed",
+    weights: Any = None,
+    channels: Optional[Sequence[str]] = None,
+    tol: float = 1e-10,
+    max_iter: int = 500,
+    init: str = "available-case",
+    starts: int = 1,
+    seed: int = 0,
+    loading: float = 1e-2,
+    shrinkage: float = 0.1,
+    samples: Optional[int] = None,
+    rank: Optional[int] = None,
+    positions: Optional[Mapping[str, Sequence[float]]] = None,
+    correct_scale: bool = False,
+    effective_samples: Optional[float] = None,
+    regularize: Optional[str] = None,
+    drop_unobserved: bool = False,
+    unit: Optional[str] = None,
+) -> Tuple[np.ndarray, Dict[str, Any]]:
+    """The mean of a stack of covariance matrices whose trials lost channels.
+
+    Runs the same job as ``lacuna mean`` with the same defaults, so the mean
+    is bit for bit the command line's on the same data.
+
+    Parameters
+    ----------
+    stack : array (N, p, p)
+        Trial covariances. Rows and columns of unobserved channels may be NaN.
+    mask : array (N, p) of bool or 0/1, optional
+        True/1 where the trial observed the channel. Default: observed where
+        the diagonal entry is not NaN.
+    scheme : str
+        Averaging scheme (see :func:`schemes`); default the masked Riemannian
+        mean ``"airm-observed"``, fitted to each trial's observed sub-block.
+    weights : array (N,), optional
+        Non-negative trial weights (default equal).
+    channels : list of str, optional
+        Channel names (default ch0, ch1, ...); used in messages and the report.
+    tol, max_iter : float, int
+        Stop when the whitened Riemannian gradient norm is at or below
+        ``tol``; give up after ``max_iter`` iterations (``report["converged"]``
+        is then False and the advice says why).
+    init, starts, seed :
+        Starting point of airm-observed (``"available-case"``, ``"diagonal"``,
+        ``"scaled-identity"``), number of starts of the multi-start check and
+        the seed of the random ones.
+    loading, shrinkage, samples, rank, positions :
+        Settings of diagonal-loading (λ), shrinkage (α; with ``samples`` each
+        trial's OAS intensity), subspace (rank) and spherical-spline
+        (``{channel: (x, y, z)}`` on the unit sphere).
+    correct_scale, effective_samples :
+        Remove the Riemannian mean's short-window scale bias (needs
+        ``samples`` or ``effective_samples``).
+    regularize : str, optional
+        Regularise every block first: ``"shrinkage:0.1"``, ``"loading:0.01"``
+        or ``"oas"`` (with ``samples``), for rank-deficient windows.
+    drop_unobserved : bool
+        Leave out channels no trial observed instead of raising.
+    unit : str, optional
+        Physical unit of the data (e.g. ``"uV"``); the report gives
+        covariances in its square.
+
+    Returns
+    -------
+    mean : array (p, p)
+        The mean, NaN where the scheme estimates nothing (common-channels).
+    report : dict
+        The report ``lacuna mean --report`` writes: convergence, trace,
+        coverage, co-observation, identifiability, ranks, notes and advice.
+
+    Raises
+    ------
+    LacunaError
+        Invalid input or settings (the message names trial, channel or
+        setting). A mean that did not converge is returned, not raised:
+        check ``report["converged"]``.
+    TypeError
+        Arrays of a non-numeric dtype.
+    """
+    s = _as_stack(stack)
+    m = _as_mask(mask, s)
+    w = _as_weights(weights, s.shape[0])
+    job = {
+        "scheme": scheme,
+        "tol": float(tol),
+        "max_iter": int(max_iter),
+        "init": init,
+        "starts": int(starts),
+        "seed": int(seed),
+        "loading": float(loading),
+        "shrinkage": float(shrinkage),
+        "samples": None if samples is None else int(samples),
+        "rank": None if rank is None else int(rank),
+        "positions": None
+        if positions is None
+        else {str(k): [float(x) for x in v] for k, v in positions.items()},
+        "correct_scale": bool(correct_scale),
+        "effective_samples": None if effective_samples is None else float(effective_samples),
+        "regularize": regularize,
+        "drop_unobserved": bool(drop_unobserved),
+        "unit": unit,
+    }
+    for key in ("max_iter", "starts", "samples", "rank"):
+        if job[key] is not None and job[key] < 0:
+            raise LacunaError(f"{key} must not be negative, got {job[key]}")
+    for key in ("tol", "loading", "shrinkage", "effective_samples"):
+        if job[key] is not None and not np.isfinite(job[key]):
+            raise LacunaError(f"{key} must be a finite number, got {job[key]}")
+    names: Optional[List[str]] = None if channels is None else [str(c) for c in channels]
+    if names is not None and len(names) != s.shape[1]:
+        raise LacunaError(
+            f"channels names {len(names)} channels, the stack has {s.shape[1]}"
+        )
+    result, report = _lacuna.mean(s, m, w, names, json.dumps(job, allow_nan=False))
+    return result, json.loads(report)
+
+
+def schemes() -> List[Tuple[str, str]]:
+    """The averaging schemes, as (name, what it assumes) pairs."""
+    return _lacuna.schemes()
+
+
+class MaskedMean:
+    """Estimator-style wrapper of :func:`mean`.
+
+    >>> est = MaskedMean(scheme="airm-observed").fit(stack, mask)
+    >>> est.mean_, est.report_["converged"]
+
+    Settings are the keyword arguments of :func:`mean`; ``fit`` stores the
+    mean in ``mean_``, the report in ``report_`` and the channel names in
+    ``channels_``.
+    """
+
+    def __init__(self, **settings: Any) -> None:
+        self.settings = dict(settings)
+
+    def fit(self, stack: Any, mask: Any = None, weights: Any = None) -> "MaskedMean":
+        settings = dict(self.settings)
+        if weights is not None:
+            settings["weights"] = weights
+        self.mean_, self.report_ = mean(stack, mask, **settings)
+        self.channels_ = list(self.report_["channels"])
+        return self
+
+    def __repr__(self) -> str:
+        args = ", ".join(f"{k}={v!r}" for k, v in self.settings.items())
+        return f"MaskedMean({args})"

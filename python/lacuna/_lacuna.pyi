@@ -1,0 +1,19 @@
+# Type stubs of the compiled module (python/src/lib.rs). Use the wrappers in
+# lacuna/__init__.py; they check arrays and fill in the defaults.
+from typing import List, Optional, Tuple
+
+import numpy as np
+import numpy.typing as npt
+
+__version__: str
+
+class LacunaError(ValueError): ...
+
+def mean(
+    stack: npt.NDArray[np.float64],
+    mask: npt.NDArray[np.bool_],
+    weights: Optional[npt.NDArray[np.float64]],
+    channels: Optional[List[str]],
+    job_json: str,
+) -> Tuple[npt.NDArray[np.float64], str]: ...
+def schemes() -> List[Tuple[str, str]]: ...

@@ -1,0 +1,104 @@
+//! The compiled half of the Python package `lacuna`: thin bindings over the
+//! library's jobs. Arrays arrive checked by the Python wrapper
+//! (python/lacuna/__init__.py); everything numerical happens in `lacuna`,
+//! with the GIL released.
+
+use numpy::prelude::*;
+use numpy::{PyArray2, PyReadonlyArray1, PyReadonlyArray2, PyReadonlyArray3};
+use pyo3::create_exception;
+use pyo3::exceptions::PyValueError;
+use pyo3::prelude::*;
+
+use lacuna::jobs::MeanJob;
+use lacuna::trials::{Trial, TrialSet};
+
+create_exception!(
+    lacuna,
+    LacunaError,
+    PyValueError,
+    "Invalid input or settings, or a computation lacuna cannot vouch for; the message names the trial, channel or setting."
+);
+
+fn to_py(e: lacuna::LacunaError) -> PyErr {
+    LacunaError::new_err(e.to_string())
+}
+
+/// Builds a trial set from a (N, p, p) stack and a (N, p) observation mask.
+fn trial_set(
+    stack: &[f64],
+    shape: [usize; 3],
+    observed: &[bool],
+    weights: Option<Vec<f64>>,
+    channels: Option<Vec<String>>,
+) -> lacuna::Result<TrialSet> {
+    let [n, p, _] = shape;
+    let trials = (0..n)
+        .map(|i| {
+            let keep = (0..p).filter(|&c| observed[i * p + c]).collect();
+            Trial::from_stack_row(stack, p, i, keep)
+        })
+        .collect();
+    let channels = channels.unwrap_or_else(|| lacuna::trials::default_channel_names(p));
+    TrialSet::new(channels, trials, weights, "the stack")
+}
+
+/// mean(stack, mask, weights, channels, job_json) -> (mean, report_json)
+///
+/// The masked (or other) mean of a stack; `job_json` holds the settings of
+/// `lacuna::jobs::MeanJob` (missing keys take the CLI's defaults). Returns
+/// the mean (NaN where the scheme estimates nothing) and the report as JSON
+/// text, as `lacuna mean --report` writes it (without file provenance).
+#[pyfunction]
+#[pyo3(signature = (stack, mask, weights, channels, job_json))]
+fn mean<'py>(
+    py: Python<'py>,
+    stack: PyReadonlyArray3<'py, f64>,
+    mask: PyReadonlyArray2<'py, bool>,
+    weights: Option<PyReadonlyArray1<'py, f64>>,
+    channels: Option<Vec<String>>,
+    job_json: &str,
+) -> PyResult<(Bound<'py, PyArray2<f64>>, String)> {
+    let job: MeanJob = serde_json::from_str(job_json)
+        .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
+    let shape = stack.shape();
+    let shape = [shape[0], shape[1], shape[2]];
+    let data = stack.as_slice()?.to_vec();
+    let observed = mask.as_slice()?.to_vec();
+    let weights = match weights {
+        Some(w) => Some(w.as_slice()?.to_vec()),
+        None => None,
+    };
+    let (mean, report) = py
+        .detach(move || -> lacuna::Result<(lacuna::Mat, String)> {
+            let set = trial_set(&data, shape, &observed, weights, channels)?;
+            let run = job.run(set, None)?;
+            let report = run.report(None).to_json();
+            Ok((run.result.published(), report))
+        })
+        .map_err(to_py)?;
+    let p = mean.nrows();
+    let flat: Vec<f64> = (0..p)
+        .flat_map(|a| (0..p).map(move |b| (a, b)))
+        .map(|(a, b)| mean[(a, b)])
+        .collect();
+    let array = flat.into_pyarray(py).reshape([p, p])?;
+    Ok((array, report))
+}
+
+/// The averaging schemes: a list of (name, what it assumes) pairs.
+#[pyfunction]
+fn schemes() -> Vec<(String, String)> {
+    lacuna::all_schemes()
+        .iter()
+        .map(|s| (s.name().to_string(), s.summary().to_string()))
+        .collect()
+}
+
+#[pymodule]
+fn _lacuna(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add("LacunaError", m.py().get_type::<LacunaError>())?;
+    m.add("__version__", env!("CARGO_PKG_VERSION"))?;
+    m.add_function(wrap_pyfunction!(mean, m)?)?;
+    m.add_function(wrap_pyfunction!(schemes, m)?)?;
+    Ok(())
+}
