@@ -4,15 +4,11 @@ use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 
 use clap::Args;
-use lacuna::ingest::covariance::Estimator;
-use lacuna::ingest::detect::{DetectOptions, Reason};
-use lacuna::ingest::edf::EdfFile;
-use lacuna::ingest::epochs::{EpochSpec, Windowing, plan_epochs, read_npy_epochs};
-use lacuna::ingest::pipeline::{ExtractOptions, Extraction, SessionInput, extract};
-use lacuna::ingest::text::{read_events_csv, read_signal_csv};
-use lacuna::ingest::{Event, SignalSource};
-use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan, read_mask};
-use lacuna::{LacunaError, Result};
+use lacuna::Result;
+use lacuna::ingest::detect::Reason;
+use lacuna::ingest::pipeline::{ExtractOptions, Extraction};
+use lacuna::jobs::ExtractJob;
+use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan};
 use serde_json::json;
 
 #[derive(Args, Debug)]
@@ -117,60 +113,6 @@ pub struct ExtractArgs {
     quiet: bool,
 }
 
-fn parse_band(s: &str) -> Result<(f64, f64)> {
-    let parts: Vec<&str> = s.split(['-', ',', ':']).collect();
-    let bad = || {
-        LacunaError::InvalidOption(format!(
-            "--band {s:?}: write it as LOW-HIGH in Hz, e.g. 8-30"
-        ))
-    };
-    if parts.len() != 2 {
-        return Err(bad());
-    }
-    let lo: f64 = parts[0].trim().parse().map_err(|_| bad())?;
-    let hi: f64 = parts[1].trim().parse().map_err(|_| bad())?;
-    Ok((lo, hi))
-}
-
-fn session_name(path: &Path) -> String {
-    path.file_stem()
-        .map(|s| s.to_string_lossy().into_owned())
-        .unwrap_or_else(|| path.display().to_string())
-}
-
-fn windowing_for(a: &ExtractArgs, events: Vec<Event>, source: &str) -> Result<Windowing> {
-    if let Some(w) = a.window {
-        return Ok(Windowing::Fixed {
-            length: w,
-            step: a.step.unwrap_or(w),
-        });
-    }
-    if events.is_empty() {
-        return Err(LacunaError::Unsupported(format!(
-            "{source}: no events (no --events file and no EDF+/BDF+ annotations); give --events or use fixed windows with --window"
-        )));
-    }
-    let length = match a.length {
-        Some(l) => l,
-        None => {
-            let d = events[0].duration;
-            if d > 0.0 && events.iter().all(|e| e.duration == d) {
-                d
-            } else {
-                return Err(LacunaError::InvalidOption(format!(
-                    "{source}: events have different or zero durations; give the epoch length with --length"
-                )));
-            }
-        }
-    };
-    Ok(Windowing::Events {
-        events,
-        offset: a.offset,
-        length,
-        keep: a.labels.clone(),
-    })
-}
-
 pub fn run(a: ExtractArgs) -> Result<i32> {
     {
         let mut inputs: Vec<(&str, &Path)> = a
@@ -216,142 +158,32 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
         float_in("--flat-ratio", a.flat_ratio, 0.0, 1.0)?;
         float_in("--rail-fraction", a.rail_fraction, 1e-6, 1.0)?;
     }
-    let estimator = Estimator::parse(&a.estimator).ok_or_else(|| {
-        LacunaError::InvalidOption(format!(
-            "--estimator {}: choose oas, ledoit-wolf or sample",
-            a.estimator
-        ))
-    })?;
-    let band = a.band.as_deref().map(parse_band).transpose()?;
-    let mut inputs = Vec::new();
-    let mut edf_units: Vec<String> = Vec::new();
-    if let Some(path) = &a.epochs {
-        let rate = a.rate.ok_or_else(|| {
-            LacunaError::InvalidOption("--epochs needs the sampling rate: --rate HZ".into())
-        })?;
-        let names = (!a.channels.is_empty()).then(|| a.channels.clone());
-        let (source, epochs) = read_npy_epochs(path, rate, names)?;
-        inputs.push(SessionInput {
-            session: session_name(path),
-            source: Box::new(source),
-            epochs,
-            isolated: true,
-        });
-    } else {
-        if a.recordings.is_empty() {
-            return Err(LacunaError::InvalidOption(
-                "give one or more recordings (EDF/BDF/CSV), or --epochs FILE.npy".into(),
-            ));
-        }
-        if !a.events.is_empty() && a.events.len() != a.recordings.len() {
-            return Err(LacunaError::InvalidOption(format!(
-                "{} --events files for {} recordings: give one per recording, in the same order",
-                a.events.len(),
-                a.recordings.len()
-            )));
-        }
-        for (k, path) in a.recordings.iter().enumerate() {
-            let is_csv = path
-                .extension()
-                .is_some_and(|e| e.eq_ignore_ascii_case("csv"));
-            let (source, annotations): (Box<dyn SignalSource + Send>, Vec<Event>) = if is_csv {
-                let rate = a.rate.ok_or_else(|| {
-                    LacunaError::InvalidOption(format!(
-                        "{}: a CSV recording carries no sampling rate; give it with --rate HZ",
-                        path.display()
-                    ))
-                })?;
-                (Box::new(read_signal_csv(path, rate)?), Vec::new())
-            } else {
-                let mut f = EdfFile::open(path)?;
-                edf_units.extend(f.units());
-                if !a.quiet {
-                    for w in &f.header.warnings {
-                        eprintln!("warning: {}: {w}", path.display());
-                    }
-                }
-                // The annotation signal of every EDF+/BDF+ file is checked
-                // (unless skipped); annotations are the events only when no
-                // events file or fixed windows were asked for.
-                let scanned = if a.skip_annotations {
-                    Vec::new()
-                } else {
-                    f.annotations()?
-                };
-                let ann = if a.events.is_empty() && a.window.is_none() {
-                    scanned
-                } else {
-                    Vec::new()
-                };
-                if !f.set_aside.is_empty() && !a.quiet {
-                    eprintln!(
-                        "note: {}: set aside (other sampling rate): {}",
-                        path.display(),
-                        f.set_aside
-                            .iter()
-                            .map(|(n, r)| format!("{n} ({r} Hz)"))
-                            .collect::<Vec<_>>()
-                            .join(", ")
-                    );
-                }
-                (Box::new(f), ann)
-            };
-            let events = match a.events.get(k) {
-                Some(e) => read_events_csv(e)?,
-                None => annotations,
-            };
-            let windowing = windowing_for(&a, events, &path.display().to_string())?;
-            let epochs: Vec<EpochSpec> = plan_epochs(source.as_ref(), &windowing)?;
-            inputs.push(SessionInput {
-                session: session_name(path),
-                source,
-                epochs,
-                isolated: false,
-            });
-        }
-    }
-    let n_epochs: usize = inputs.iter().map(|i| i.epochs.len()).sum();
-    let channel_names: Vec<String> = if a.channels.is_empty() || a.epochs.is_some() {
-        inputs[0].source.channel_names().to_vec()
-    } else {
-        a.channels.clone()
-    };
-    let user_mask = match &a.mask {
-        Some(path) => {
-            let m = read_mask(path, n_epochs, channel_names.len())?;
-            match &m.channels {
-                // A CSV mask is matched to the recording's channels by name,
-                // never by column position.
-                Some(header) => Some(mask_by_name(path, &m.observed, header, &channel_names)?),
-                None => Some(m.observed),
-            }
-        }
-        None => None,
-    };
-    let opts = ExtractOptions {
-        band,
+    let job = ExtractJob {
+        recordings: a.recordings.clone(),
+        epochs: a.epochs.clone(),
+        events: a.events.clone(),
+        rate: a.rate,
+        offset: a.offset,
+        length: a.length,
+        window: a.window,
+        step: a.step,
+        labels: a.labels.clone(),
+        band: a.band.clone(),
         order: a.order,
-        estimator,
-        detect: DetectOptions {
-            enabled: !a.no_detect,
-            rail_fraction: a.rail_fraction,
-            flat_relative: a.flat_ratio,
-            amplitude_z: a.amplitude_z,
-            broadband_z: a.broadband_z,
-            min_correlation: a.min_correlation,
-            ..DetectOptions::default()
-        },
-        channels: (!a.channels.is_empty() && a.epochs.is_none()).then(|| a.channels.clone()),
-        bad_channels: a.bad.clone(),
-        user_mask,
-        chunk_seconds: 30.0,
+        estimator: a.estimator.clone(),
+        no_detect: a.no_detect,
+        amplitude_z: a.amplitude_z,
+        broadband_z: a.broadband_z,
+        min_correlation: a.min_correlation,
+        flat_ratio: a.flat_ratio,
+        rail_fraction: a.rail_fraction,
+        channels: a.channels.clone(),
+        bad: a.bad.clone(),
+        mask: a.mask.clone(),
+        skip_annotations: a.skip_annotations,
+        unit: a.unit.clone(),
     };
-    let sources: Vec<(String, String)> = inputs
-        .iter()
-        .map(|i| (i.session.clone(), i.source.name()))
-        .collect();
     let show = !a.quiet && std::io::stderr().is_terminal();
-    let started = std::time::Instant::now();
     let progress = |done: u64, total: u64| {
         if show {
             let frac = done as f64 / total.max(1) as f64;
@@ -365,24 +197,33 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
             );
         }
     };
-    let out = extract(inputs, &opts, &progress)?;
+    let run = job.run(&progress)?;
     if show {
         eprintln!();
     }
-    let elapsed = started.elapsed().as_secs_f64();
-    let set = out.trial_set()?;
-    // The data's physical unit: --unit, else the EDF/BDF headers' when every
-    // channel shares one.
-    let unit = a.unit.clone().or_else(|| {
-        let first = edf_units.first()?.clone();
-        (!first.is_empty() && edf_units.iter().all(|u| *u == first)).then_some(first)
-    });
-    write_outputs(&a, &out, &set, &sources, &opts, elapsed, unit.as_deref())?;
-    let summary = summary_json(&out, &set, elapsed);
+    if !a.quiet {
+        for w in &run.warnings {
+            eprintln!("warning: {w}");
+        }
+        for n in &run.notes {
+            eprintln!("note: {n}");
+        }
+    }
+    let (out, set, elapsed) = (&run.extraction, &run.set, run.elapsed_seconds);
+    write_outputs(
+        &a,
+        out,
+        set,
+        &run.sources,
+        &run.options,
+        elapsed,
+        run.unit.as_deref(),
+    )?;
+    let summary = summary_json(out, set, elapsed);
     if a.json {
         println!("{}", serde_json::to_string_pretty(&summary).expect("JSON"));
     } else if !a.quiet {
-        print_summary(&a, &out, &set);
+        print_summary(&a, out, set);
     }
     Ok(0)
 }
@@ -576,43 +417,4 @@ fn write_outputs(
         files.push((path.clone(), text.into_bytes()));
     }
     lacuna::output::write_outputs(Some(&a.out), files)
-}
-
-/// Reorders a CSV mask's columns to `channels` by header name. Unknown,
-/// missing or repeated names are refused, naming them.
-fn mask_by_name(
-    path: &Path,
-    observed: &[bool],
-    header: &[String],
-    channels: &[String],
-) -> Result<Vec<bool>> {
-    let err = |message: String| LacunaError::Format {
-        path: path.to_path_buf(),
-        message,
-    };
-    let p = header.len();
-    let mut column = Vec::with_capacity(channels.len());
-    for c in channels {
-        let hits: Vec<usize> = (0..p).filter(|&k| &header[k] == c).collect();
-        match hits.as_slice() {
-            [k] => column.push(*k),
-            [] => {
-                return Err(err(format!(
-                    "the mask has no column named '{c}' (its header: {}); name the columns after the recording's channels",
-                    header.join(", ")
-                )));
-            }
-            _ => return Err(err(format!("the mask names channel '{c}' more than once"))),
-        }
-    }
-    if let Some(extra) = header.iter().find(|h| !channels.contains(h)) {
-        return Err(err(format!(
-            "the mask has a column '{extra}' that is not a channel of the recording ({})",
-            channels.join(", ")
-        )));
-    }
-    let n = observed.len() / p.max(1);
-    Ok((0..n)
-        .flat_map(|e| column.iter().map(move |&k| observed[e * p + k]))
-        .collect())
 }

@@ -3,7 +3,7 @@
 use std::path::{Path, PathBuf};
 
 use clap::Args;
-use lacuna::trials::npy::write_atomic;
+use lacuna::output::write_atomic;
 use lacuna::{LacunaError, Result};
 
 const EXAMPLE: &str = "Example:

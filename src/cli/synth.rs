@@ -5,6 +5,7 @@ use std::path::{Path, PathBuf};
 use clap::{Args, ValueEnum};
 use lacuna::ingest::edf::{EdfVariant, EdfWriteSpec, write_edf};
 use lacuna::ingest::text::encode_events_csv;
+use lacuna::output::write_atomic;
 use lacuna::simulate::headset::{HeadsetParams, simulate};
 use lacuna::simulate::recording::{RecordingParams, simulate_recording};
 use lacuna::simulate::rng::Rng;
@@ -12,7 +13,6 @@ use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_co
 use lacuna::trials::TrialSet;
 use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan, write_matrix};
 use lacuna::trials::npy::encode_f64;
-use lacuna::trials::npy::write_atomic;
 use lacuna::{LacunaError, Result};
 
 #[derive(Clone, Copy, Debug, ValueEnum)]

@@ -700,7 +700,7 @@ pub struct EdfWriteSpec<'a> {
 /// written as the digital minimum.
 pub fn write_edf(path: &Path, spec: &EdfWriteSpec, signals: &[Vec<f64>]) -> Result<()> {
     let bytes = encode_edf(spec, signals)?;
-    crate::trials::npy::write_atomic(path, &bytes)
+    crate::output::write_atomic(path, &bytes)
 }
 
 /// Encodes an EDF/BDF(+) file in memory (see [`write_edf`]).

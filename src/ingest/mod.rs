@@ -89,28 +89,3 @@ impl SignalSource for InMemorySource {
         Ok(Box::new(self.clone()))
     }
 }
-
-/// Opens a recording by extension: .edf/.bdf (either is sniffed from the
-/// header) or .csv (continuous, header of channel names; `rate` required).
-pub fn open_recording(
-    path: &std::path::Path,
-    csv_rate: Option<f64>,
-) -> Result<Box<dyn SignalSource + Send>> {
-    let ext = path
-        .extension()
-        .and_then(|e| e.to_str())
-        .unwrap_or("")
-        .to_ascii_lowercase();
-    match ext.as_str() {
-        "csv" | "tsv" | "txt" => {
-            let rate = csv_rate.ok_or_else(|| {
-                crate::LacunaError::InvalidOption(format!(
-                    "{}: a CSV recording carries no sampling rate; give it with --rate HZ",
-                    path.display()
-                ))
-            })?;
-            Ok(Box::new(text::read_signal_csv(path, rate)?))
-        }
-        _ => Ok(Box::new(edf::EdfFile::open(path)?)),
-    }
-}

@@ -3,6 +3,8 @@
 //! settings struct with the CLI's defaults, checked once before any work,
 //! and a `run` that returns typed results; writing files stays with the caller.
 
+pub mod extract;
 pub mod mean;
 
+pub use extract::{ExtractJob, ExtractRun};
 pub use mean::{MeanJob, MeanRun};

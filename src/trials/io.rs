@@ -445,7 +445,7 @@ pub fn encode_matrix(path: &Path, m: &Mat, channels: &[String]) -> Vec<u8> {
 
 /// Writes a mean atomically, NPY or CSV by extension.
 pub fn write_matrix(path: &Path, m: &Mat, channels: &[String]) -> Result<()> {
-    npy::write_atomic(path, &encode_matrix(path, m, channels))
+    crate::output::write_atomic(path, &encode_matrix(path, m, channels))
 }
 
 /// Reads a `(p, p)` matrix from NPY or a CSV with a header row.

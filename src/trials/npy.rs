@@ -311,12 +311,6 @@ pub fn encode_u8(shape: &[usize], data: &[u8]) -> Vec<u8> {
     out
 }
 
-/// Writes bytes to `path` atomically: a temporary file in the same folder,
-/// flushed and then renamed, so a failure never leaves half a file behind.
-pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
-    crate::output::write_atomic(path, bytes)
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
