@@ -15,14 +15,15 @@ not diagnose. Follow local rules and licensed clinical practice.
 from __future__ import annotations
 
 import json
-from typing import Any, Dict, List, Mapping, Optional, Sequence, Tuple
+import os
+from typing import Any, Dict, List, Mapping, Optional, Sequence, Tuple, Union
 
 import numpy as np
 
 from . import _lacuna
 from ._lacuna import LacunaError, __version__
 
-__all__ = ["mean", "schemes", "MaskedMean", "LacunaError", "__version__"]
+__all__ = ["mean", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
 
 
 def _as_stack(stack: Any) -> np.ndarray:
@@ -190,6 +191,97 @@ def mean(
         )
     result, report = _lacuna.mean(s, m, w, names, json.dumps(job, allow_nan=False))
     return result, json.loads(report)
+
+
+def extract(
+    recordings: Union[str, "os.PathLike[str]", Sequence[Union[str, "os.PathLike[str]"]]] = (),
+    *,
+    epochs: Optional[str] = None,
+    events: Sequence[str] = (),
+    rate: Optional[float] = None,
+    offset: float = 0.0,
+    length: Optional[float] = None,
+    window: Optional[float] = None,
+    step: Optional[float] = None,
+    labels: Sequence[str] = (),
+    band: Optional[Union[str, Tuple[float, float]]] = None,
+    order: int = 4,
+    estimator: str = "oas",
+    detect: bool = True,
+    amplitude_z: float = 6.0,
+    broadband_z: float = 7.0,
+    min_correlation: float = 0.5,
+    flat_ratio: float = 0.1,
+    rail_fraction: float = 0.05,
+    channels: Sequence[str] = (),
+    bad: Sequence[str] = (),
+    mask: Optional[str] = None,
+    skip_annotations: bool = False,
+    unit: Optional[str] = None,
+) -> Dict[str, Any]:
+    """Recordings to masked covariances: the job of ``lacuna extract``.
+
+    Cuts each recording (EDF/EDF+, BDF/BDF+, or CSV with ``rate``; one per
+    session) into epochs at its events (EDF+/BDF+ annotations, or ``events``
+    CSVs) or into fixed ``window``s, band-passes them, masks every channel
+    that was missing, saturated, flat, an amplitude outlier, broadband-noisy
+    or isolated in an epoch (with the reason), and estimates each epoch's
+    covariance on the channels it kept. Same defaults and same numbers as
+    the command line.
+
+    Returns
+    -------
+    dict with
+        ``covs`` (N, p, p) float64, NaN where a channel was masked;
+        ``mask`` (N, p) bool, True where observed;
+        ``channels``, ``labels`` and ``sessions`` (per trial);
+        ``epochs``: every epoch (session, onset_s, label, samples, shrinkage,
+        rank, observed channels, and its trial index or None when it lost
+        every channel); ``masked``: every masked cell (epoch, channel,
+        reason); ``unit``, ``covariance_unit``, ``set_aside``, ``warnings``,
+        ``notes``.
+
+    Feed ``covs`` and ``mask`` to :func:`mean`.
+    """
+    if isinstance(recordings, (str, os.PathLike)):
+        recordings = [recordings]
+    if isinstance(band, tuple):
+        band = f"{band[0]}-{band[1]}"
+    job = {
+        "recordings": [os.fspath(r) for r in recordings],
+        "epochs": None if epochs is None else os.fspath(epochs),
+        "events": [os.fspath(e) for e in events],
+        "rate": None if rate is None else float(rate),
+        "offset": float(offset),
+        "length": None if length is None else float(length),
+        "window": None if window is None else float(window),
+        "step": None if step is None else float(step),
+        "labels": [str(x) for x in labels],
+        "band": band,
+        "order": int(order),
+        "estimator": estimator,
+        "no_detect": not detect,
+        "amplitude_z": float(amplitude_z),
+        "broadband_z": float(broadband_z),
+        "min_correlation": float(min_correlation),
+        "flat_ratio": float(flat_ratio),
+        "rail_fraction": float(rail_fraction),
+        "channels": [str(c) for c in channels],
+        "bad": [str(c) for c in bad],
+        "mask": None if mask is None else os.fspath(mask),
+        "skip_annotations": bool(skip_annotations),
+        "unit": unit,
+    }
+    if job["order"] < 0:
+        raise LacunaError(f"order must be between 1 and 10, got {job['order']}")
+    for key, value in job.items():
+        if isinstance(value, float) and not np.isfinite(value):
+            raise LacunaError(f"{key} must be a finite number, got {value}")
+    covs, observed, record = _lacuna.extract(json.dumps(job))
+    out = json.loads(record)
+    out["covs"] = covs
+    out["mask"] = observed
+    return out
 
 
 def schemes() -> List[Tuple[str, str]]:

@@ -4,12 +4,12 @@
 //! with the GIL released.
 
 use numpy::prelude::*;
-use numpy::{PyArray2, PyReadonlyArray1, PyReadonlyArray2, PyReadonlyArray3};
+use numpy::{PyArray2, PyArray3, PyReadonlyArray1, PyReadonlyArray2, PyReadonlyArray3};
 use pyo3::create_exception;
 use pyo3::exceptions::PyValueError;
 use pyo3::prelude::*;
 
-use lacuna::jobs::MeanJob;
+use lacuna::jobs::{ExtractJob, MeanJob};
 use lacuna::trials::{Trial, TrialSet};
 
 create_exception!(
@@ -85,6 +85,87 @@ fn mean<'py>(
     Ok((array, report))
 }
 
+/// extract(job_json) -> (covs, mask, record_json)
+///
+/// Runs `lacuna::jobs::ExtractJob` (settings as JSON; missing keys take the
+/// CLI's defaults). Returns the trials' covariances (N, p, p) with NaN where
+/// a channel was masked, the (N, p) observation mask, and a JSON record:
+/// channels, per-trial labels and sessions, every epoch, every masked cell
+/// with its reason, unit, warnings and notes.
+#[pyfunction]
+fn extract<'py>(
+    py: Python<'py>,
+    job_json: &str,
+) -> PyResult<(
+    Bound<'py, PyArray3<f64>>,
+    Bound<'py, PyArray2<bool>>,
+    String,
+)> {
+    let job: ExtractJob = serde_json::from_str(job_json)
+        .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
+    let (covs, mask, shape, record) = py
+        .detach(move || -> lacuna::Result<_> {
+            let run = job.run(&|_, _| {})?;
+            let set = &run.set;
+            let (n, p) = (set.len(), set.n_channels());
+            let mut covs = vec![f64::NAN; n * p * p];
+            for (i, t) in set.trials().iter().enumerate() {
+                for (a, &ca) in t.observed.iter().enumerate() {
+                    for (b, &cb) in t.observed.iter().enumerate() {
+                        covs[i * p * p + ca * p + cb] = t.block[(a, b)];
+                    }
+                }
+            }
+            let x = &run.extraction;
+            let mut trial = 0usize;
+            let epochs: Vec<serde_json::Value> = x
+                .epochs
+                .iter()
+                .enumerate()
+                .map(|(e, info)| {
+                    let index = (!x.empty_epochs.contains(&e)).then(|| {
+                        trial += 1;
+                        trial - 1
+                    });
+                    serde_json::json!({
+                        "session": info.session,
+                        "onset_s": info.onset,
+                        "duration_s": info.duration,
+                        "samples": info.samples,
+                        "label": info.label,
+                        "shrinkage": info.shrinkage,
+                        "rank": info.rank,
+                        "observed": info.observed,
+                        "trial": index,
+                    })
+                })
+                .collect();
+            let masked: Vec<serde_json::Value> = x
+                .masked
+                .iter()
+                .map(|m| serde_json::json!({"epoch": m.epoch, "channel": m.channel, "reason": m.reason.name()}))
+                .collect();
+            let record = serde_json::json!({
+                "channels": set.channels(),
+                "labels": set.labels,
+                "sessions": set.sessions,
+                "epochs": epochs,
+                "masked": masked,
+                "unit": run.unit.as_deref().map(lacuna::jobs::mean::display_unit),
+                "covariance_unit": lacuna::jobs::mean::covariance_unit(run.unit.as_deref()),
+                "set_aside": x.set_aside,
+                "warnings": run.warnings,
+                "notes": run.notes,
+            });
+            Ok((covs, set.mask().to_vec(), (n, p), record.to_string()))
+        })
+        .map_err(to_py)?;
+    let (n, p) = shape;
+    let covs = covs.into_pyarray(py).reshape([n, p, p])?;
+    let mask = mask.into_pyarray(py).reshape([n, p])?;
+    Ok((covs, mask, record))
+}
+
 /// The averaging schemes: a list of (name, what it assumes) pairs.
 #[pyfunction]
 fn schemes() -> Vec<(String, String)> {
@@ -100,5 +181,6 @@ fn _lacuna(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;
     m.add_function(wrap_pyfunction!(mean, m)?)?;
     m.add_function(wrap_pyfunction!(schemes, m)?)?;
+    m.add_function(wrap_pyfunction!(extract, m)?)?;
     Ok(())
 }
