@@ -108,14 +108,7 @@ fn extract<'py>(
             let run = job.run(&|_, _| {})?;
             let set = &run.set;
             let (n, p) = (set.len(), set.n_channels());
-            let mut covs = vec![f64::NAN; n * p * p];
-            for (i, t) in set.trials().iter().enumerate() {
-                for (a, &ca) in t.observed.iter().enumerate() {
-                    for (b, &cb) in t.observed.iter().enumerate() {
-                        covs[i * p * p + ca * p + cb] = t.block[(a, b)];
-                    }
-                }
-            }
+            let covs = lacuna::trials::io::nan_stack(set);
             let x = &run.extraction;
             let mut trial = 0usize;
             let epochs: Vec<serde_json::Value> = x

@@ -134,30 +134,6 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
             .collect();
         lacuna::output::check_paths(&inputs, &outputs, &[("--out", &a.out)])?;
     }
-    {
-        // One documented range per option (see --help).
-        use super::ranges::{float_in, int_in};
-        const DAY: f64 = 86_400.0;
-        if let Some(r) = a.rate {
-            float_in("--rate", r, 1e-3, 1e6)?;
-        }
-        float_in("--offset", a.offset, -DAY, DAY)?;
-        for (o, v) in [
-            ("--length", a.length),
-            ("--window", a.window),
-            ("--step", a.step),
-        ] {
-            if let Some(v) = v {
-                float_in(o, v, 1e-6, DAY)?;
-            }
-        }
-        int_in("--order", a.order, 1, 10)?;
-        float_in("--amplitude-z", a.amplitude_z, 0.5, 100.0)?;
-        float_in("--broadband-z", a.broadband_z, 0.5, 100.0)?;
-        float_in("--min-correlation", a.min_correlation, 0.0, 1.0)?;
-        float_in("--flat-ratio", a.flat_ratio, 0.0, 1.0)?;
-        float_in("--rail-fraction", a.rail_fraction, 1e-6, 1.0)?;
-    }
     let job = ExtractJob {
         recordings: a.recordings.clone(),
         epochs: a.epochs.clone(),
@@ -183,6 +159,8 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
         skip_annotations: a.skip_annotations,
         unit: a.unit.clone(),
     };
+    // Every setting checked before any file is read; messages name the flags.
+    job.validate().map_err(super::ranges::as_flag)?;
     let show = !a.quiet && std::io::stderr().is_terminal();
     let progress = |done: u64, total: u64| {
         if show {

@@ -5,9 +5,9 @@ use std::path::PathBuf;
 use std::sync::Arc;
 
 use clap::Args;
+use lacuna::Result;
 use lacuna::jobs::MeanJob;
 use lacuna::trials::io::load_trial_set;
-use lacuna::{LacunaError, Result};
 
 #[derive(Args, Debug)]
 #[command(
@@ -109,21 +109,6 @@ pub struct MeanArgs {
 }
 
 pub fn run(a: MeanArgs) -> Result<i32> {
-    use super::ranges::{float_in, int_in};
-    use lacuna::jobs::mean::ranges as r;
-    // Flag names in messages here; the job checks the same ranges again by
-    // its own parameter names (for library and Python callers).
-    float_in("--tol", a.tol, r::TOL.0, r::TOL.1)?;
-    int_in("--max-iter", a.max_iter, r::MAX_ITER.0, r::MAX_ITER.1)?;
-    int_in("--starts", a.starts, r::STARTS.0, r::STARTS.1)?;
-    float_in("--loading", a.loading, r::LOADING.0, r::LOADING.1)?;
-    float_in("--shrinkage", a.shrinkage, r::SHRINKAGE.0, r::SHRINKAGE.1)?;
-    if let Some(t) = a.samples {
-        int_in("--samples", t, r::SAMPLES.0, r::SAMPLES.1)?;
-    }
-    if let Some(k) = a.rank {
-        int_in("--rank", k, r::RANK.0, r::RANK.1)?;
-    }
     let mut job = MeanJob {
         scheme: a.scheme.clone(),
         tol: a.tol,
@@ -143,12 +128,7 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         unit: a.unit.clone(),
     };
     // Settings are checked before any file is read.
-    job.options(None).map_err(|e| match e {
-        LacunaError::InvalidOption(m) if m.starts_with("unknown init") => {
-            LacunaError::InvalidOption(m.replacen("unknown init", "unknown --init", 1))
-        }
-        other => other,
-    })?;
+    job.options(None).map_err(super::ranges::as_flag)?;
     {
         let mut inputs: Vec<(&str, &std::path::Path)> = vec![("--covs", &a.covs)];
         for (o, p) in [

@@ -25,3 +25,19 @@ pub fn int_in(option: &str, v: usize, lo: usize, hi: usize) -> Result<()> {
         )))
     }
 }
+
+/// A job's setting error, with the setting named as its command-line flag
+/// (`min_correlation must be …` becomes `--min-correlation must be …`).
+pub fn as_flag(e: LacunaError) -> LacunaError {
+    match e {
+        LacunaError::InvalidOption(m) => match m.split_once(" must ") {
+            Some((name, rest))
+                if !name.is_empty() && name.chars().all(|c| c.is_ascii_lowercase() || c == '_') =>
+            {
+                LacunaError::InvalidOption(format!("--{} must {rest}", name.replace('_', "-")))
+            }
+            _ => LacunaError::InvalidOption(m.replacen("unknown init", "unknown --init", 1)),
+        },
+        other => other,
+    }
+}

@@ -487,6 +487,14 @@ pub fn read_matrix(path: &Path) -> Result<Mat> {
 
 /// Writes a stack `(N, p, p)` with NaN in unobserved rows/columns, plus a mask.
 pub fn encode_stack_with_nan(set: &TrialSet) -> Vec<u8> {
+    npy::encode_f64(
+        &[set.len(), set.n_channels(), set.n_channels()],
+        &nan_stack(set),
+    )
+}
+
+/// The set as a C-order `(N, p, p)` stack with NaN in unobserved rows and columns.
+pub fn nan_stack(set: &TrialSet) -> Vec<f64> {
     let (n, p) = (set.len(), set.n_channels());
     let mut data = vec![f64::NAN; n * p * p];
     for (i, t) in set.trials().iter().enumerate() {
@@ -496,7 +504,7 @@ pub fn encode_stack_with_nan(set: &TrialSet) -> Vec<u8> {
             }
         }
     }
-    npy::encode_f64(&[n, p, p], &data)
+    data
 }
 
 /// Serialises the mask of a set as NPY uint8 `(N, p)`.
