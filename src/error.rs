@@ -1,7 +1,8 @@
 //! Typed errors for the whole library.
 //!
-//! Library code returns [`LacunaError`]; only the binary turns it into a
-//! message and an exit code (see [`LacunaError::exit_code`]). Every variant
+//! Library code returns [`LacunaError`]; its variants carry data (file,
+//! trial, channel, setting, value, allowed range). Only the binary turns
+//! them into flag suggestions and exit codes (src/cli/errors.rs). Every variant
 //! that concerns user data names the file, the trial and the channel when
 //! they are known, so the message tells the user where to look.
 
@@ -15,8 +16,25 @@ pub struct TrialProblem {
     pub trial: Option<usize>,
     /// Channel name, when the problem belongs to one channel.
     pub channel: Option<String>,
+    /// What kind of problem (callers attach advice by kind, never by text).
+    pub kind: ProblemKind,
     /// What is wrong, in words.
     pub message: String,
+}
+
+/// The kinds of trial problems that call for different advice.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum ProblemKind {
+    /// An observed block is indefinite beyond rounding (or singular where a
+    /// full-rank block is needed).
+    Indefinite,
+    /// NaN or infinity where a value is needed.
+    NonFinite,
+    /// A block is not symmetric within tolerance.
+    NotSymmetric,
+    /// Anything else (shapes, masks, sizes).
+    #[default]
+    Other,
 }
 
 impl std::fmt::Display for TrialProblem {
@@ -39,12 +57,6 @@ fn list_problems(problems: &[TrialProblem]) -> String {
     }
     if problems.len() > SHOWN {
         out.push_str(&format!("\n  … and {} more", problems.len() - SHOWN));
-    }
-    if problems
-        .iter()
-        .any(|p| p.message.contains("not positive definite"))
-    {
-        out.push_str("\nhint: windows shorter than the channel count, average referencing and interpolation make covariances singular; estimate them with shrinkage from the recordings (`lacuna extract --estimator oas`), or mark the dependent channel as unobserved in the mask");
     }
     out
 }
@@ -80,7 +92,7 @@ pub enum LacunaError {
     Unsupported(String),
     /// A scheme that averages on the SPD manifold met a rank-deficient block.
     #[error(
-        "scheme '{scheme}' needs full-rank observed blocks, but trial {trial} has rank {rank} of {size} ({count} rank-deficient trial(s) in all). Regularise first (--regularize shrinkage:0.1, loading:0.01, or oas with --samples T), or choose a scheme that takes such windows: shrinkage, diagonal-loading, gaussian-em, available-case, subspace"
+        "scheme '{scheme}' needs full-rank observed blocks, but trial {trial} has rank {rank} of {size} ({count} rank-deficient trial(s) in all)"
     )]
     RankDeficient {
         scheme: String,
@@ -89,7 +101,32 @@ pub enum LacunaError {
         size: usize,
         count: usize,
     },
-    /// An option value is out of range.
+    /// A setting outside its accepted range (named as in the library,
+    /// e.g. `tol`, `max_iter`; the command line shows its flag instead).
+    #[error("{setting} must be {allowed}, got {value}")]
+    OutOfRange {
+        setting: String,
+        value: String,
+        allowed: String,
+    },
+    /// A name that is not one of the accepted ones.
+    #[error("{setting}: '{value}' is not one of: {}", valid.join(", "))]
+    UnknownName {
+        setting: String,
+        value: String,
+        valid: Vec<String>,
+        /// The closest valid name, when one is close.
+        closest: Option<String>,
+    },
+    /// A setting another setting or the data need.
+    #[error("{needed_for} needs the setting '{setting}'")]
+    MissingSetting { setting: String, needed_for: String },
+    /// A channel no trial observed: its variance cannot be estimated.
+    #[error(
+        "channel {channel} is observed in no trial ({count} such channel(s)); its variance cannot be estimated"
+    )]
+    NeverObserved { channel: String, count: usize },
+    /// Settings that cannot go together, or another usage problem.
     #[error("invalid option: {0}")]
     InvalidOption(String),
     /// A numerical routine failed (not positive definite mid-iteration, NaN…).
@@ -98,21 +135,6 @@ pub enum LacunaError {
 }
 
 impl LacunaError {
-    /// Exit code contract (GUIDE §4): 3 for invalid input data, 4 for a
-    /// numerical failure, 2 for usage errors, 1 for output I/O failures.
-    pub fn exit_code(&self) -> i32 {
-        match self {
-            LacunaError::Read { .. }
-            | LacunaError::Format { .. }
-            | LacunaError::InvalidTrials { .. }
-            | LacunaError::Unsupported(_)
-            | LacunaError::RankDeficient { .. } => 3,
-            LacunaError::InvalidOption(_) => 2,
-            LacunaError::Numerical(_) => 4,
-            LacunaError::Write { .. } => 1,
-        }
-    }
-
     /// Shorthand for a single trial problem with no file context yet.
     pub fn trial(
         trial: Option<usize>,
@@ -122,6 +144,7 @@ impl LacunaError {
         LacunaError::InvalidTrials {
             source_name: "input".into(),
             problems: vec![TrialProblem {
+                kind: ProblemKind::Other,
                 trial,
                 channel,
                 message: message.into(),
@@ -132,3 +155,29 @@ impl LacunaError {
 
 /// Result alias used across the crate.
 pub type Result<T> = std::result::Result<T, LacunaError>;
+
+/// `lo ≤ v ≤ hi` and finite, or an [`LacunaError::OutOfRange`] naming the setting.
+pub fn float_in(setting: &str, v: f64, (lo, hi): (f64, f64)) -> Result<()> {
+    if v.is_finite() && v >= lo && v <= hi {
+        Ok(())
+    } else {
+        Err(LacunaError::OutOfRange {
+            setting: setting.into(),
+            value: v.to_string(),
+            allowed: format!("a finite number between {lo:e} and {hi:e}"),
+        })
+    }
+}
+
+/// `lo ≤ v ≤ hi` for counts.
+pub fn int_in(setting: &str, v: usize, (lo, hi): (usize, usize)) -> Result<()> {
+    if v >= lo && v <= hi {
+        Ok(())
+    } else {
+        Err(LacunaError::OutOfRange {
+            setting: setting.into(),
+            value: v.to_string(),
+            allowed: format!("between {lo} and {hi}"),
+        })
+    }
+}

@@ -24,6 +24,7 @@ pub mod error;
 pub mod ingest;
 pub mod jobs;
 pub mod limits;
+pub mod nullable;
 pub mod output;
 pub mod report;
 pub mod schemes;

@@ -113,6 +113,15 @@ fn sweep_orphans(path: &Path) {
     }
 }
 
+/// Pretty JSON of a typed result, with a final newline.
+pub fn json_bytes<T: serde::Serialize>(value: &T) -> Vec<u8> {
+    // Our result types have string keys only, so serialising cannot fail;
+    // non-finite numbers become null (see `crate::nullable`).
+    let mut v = serde_json::to_vec_pretty(value).unwrap_or_default();
+    v.push(b'\n');
+    v
+}
+
 /// Writes `bytes` to `path` atomically (see the module documentation).
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
     check_target_file(path)?;

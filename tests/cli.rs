@@ -432,7 +432,7 @@ fn usage_errors_exit_2() {
         "mean", "--covs", "x.npy", "--out", "y.npy", "--scheme", "nonesuch",
     ]);
     assert_eq!(code, 2);
-    assert!(err.contains("unknown scheme 'nonesuch'"));
+    assert!(err.contains("--scheme 'nonesuch' is not valid"), "{err}");
     assert_eq!(lacuna(&["mean", "--out", "y.npy"]).0, 2);
 }
 

@@ -338,15 +338,15 @@ fn malformed_files_are_refused_not_misread() {
 // trip (one writer, one reader).
 #[test]
 fn names_are_quoted_in_csv_outputs() {
-    use lacuna::trials::io::{csv_row, encode_mask_csv};
+    use lacuna::trials::io::encode_mask_csv;
     let names: Vec<String> = ["Fp1,Ref", "a\"b", "line\nbreak", "Ωz"]
         .iter()
         .map(|s| s.to_string())
         .collect();
-    let row = csv_row(&names);
+    let row = lacuna::report::tables::table(&names, Vec::<Vec<String>>::new());
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(false)
-        .from_reader(row.as_bytes());
+        .from_reader(row.as_slice());
     let back: Vec<String> = rdr
         .records()
         .next()

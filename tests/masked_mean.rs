@@ -228,7 +228,10 @@ fn never_observed_channel_is_refused() {
             .contains("channel ch2 is observed in no trial"),
         "{e}"
     );
-    assert!(e.to_string().contains("--drop-unobserved"));
+    assert!(
+        matches!(&e, lacuna::LacunaError::NeverObserved { channel, count: 1 } if channel == "ch2"),
+        "{e}"
+    );
     let dropped = s
         .without_channels(&identifiability(&s).never_observed)
         .unwrap();

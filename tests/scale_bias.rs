@@ -123,6 +123,7 @@ fn population_target_recommends_a_scheme_close_to_sigma() {
         let mut cands: Vec<Candidate> = default_candidates(&base, &[]);
         cands.push(Candidate {
             label: "airm-observed+scale-corrected".into(),
+            id: lacuna::schemes::SchemeId::AirmObserved,
             scheme: Box::new(AirmObserved),
             options: SchemeOptions {
                 scale_correction: Some(48.0),

@@ -23,7 +23,7 @@ import numpy as np
 from . import _lacuna
 from ._lacuna import LacunaError, __version__
 
-__all__ = ["mean", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
+__all__ = ["mean", "compare", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
 
 
 def _as_stack(stack: Any) -> np.ndarray:
@@ -80,7 +80,7 @@ def mean(
     weights: Any = None,
     channels: Optional[Sequence[str]] = None,
     tol: float = 1e-10,
-    max_iter: int = 500,
+    max_iter: Optional[int] = None,
     init: str = "available-case",
     starts: int = 1,
     seed: int = 0,
@@ -116,7 +116,8 @@ def mean(
         Channel names (default ch0, ch1, ...); used in messages and the report.
     tol, max_iter : float, int
         Stop when the whitened Riemannian gradient norm is at or below
-        ``tol``; give up after ``max_iter`` iterations (``report["converged"]``
+        ``tol``; give up after ``max_iter`` iterations (default: the scheme's
+        own cap, 500, or 5000 for ``"gaussian-em"``; ``report["converged"]``
         is then False and the advice says why).
     init, starts, seed :
         Starting point of airm-observed (``"available-case"``, ``"diagonal"``,
@@ -161,7 +162,7 @@ def mean(
     job = {
         "scheme": scheme,
         "tol": float(tol),
-        "max_iter": int(max_iter),
+        "max_iter": None if max_iter is None else int(max_iter),
         "init": init,
         "starts": int(starts),
         "seed": int(seed),
@@ -281,6 +282,108 @@ def extract(
     out = json.loads(record)
     out["covs"] = covs
     out["mask"] = observed
+    return out
+
+
+def compare(
+    stack: Any,
+    mask: Any = None,
+    *,
+    weights: Any = None,
+    channels: Optional[Sequence[str]] = None,
+    labels: Optional[Sequence[Any]] = None,
+    sessions: Optional[Sequence[Any]] = None,
+    target: str = "centre",
+    schemes: Sequence[str] = (),
+    samples: Optional[int] = None,
+    effective_samples: Optional[float] = None,
+    positions: Optional[Mapping[str, Sequence[float]]] = None,
+    repeats: int = 20,
+    folds: int = 5,
+    bootstrap: int = 10,
+    leave_out: bool = True,
+    validation: bool = True,
+    seed: int = 0,
+    tol: float = 1e-8,
+    drop_unobserved: bool = False,
+    unit: Optional[str] = None,
+) -> Dict[str, Any]:
+    """Every scheme side by side, with the evidence for choosing one: the job
+    of ``lacuna compare``.
+
+    Runs every averaging scheme that accepts missing channels (or those in
+    ``schemes``) on the same trials, the distances between their means, the
+    selection protocols (simulated dropout, held-out fit, and — with
+    ``labels`` — minimum-distance decoding), the recommendation for
+    ``target`` (``"centre"`` or ``"population"``) and the per-channel
+    contributions to the masked mean. Same defaults and numbers as the
+    command line.
+
+    Returns
+    -------
+    dict
+        The comparison, field for field as ``compare.json`` (see
+        docs/formats.md), except that each ok scheme's ``mean`` is a
+        (p, p) float64 array with NaN outside the channels it estimates.
+        ``result["recommendation"]["scheme"]`` names the recommended one.
+    """
+    s = _as_stack(stack)
+    m = _as_mask(mask, s)
+    w = _as_weights(weights, s.shape[0])
+    n = s.shape[0]
+
+    def per_trial(values: Optional[Sequence[Any]], what: str) -> Optional[List[str]]:
+        if values is None:
+            return None
+        v = [str(x) for x in values]
+        if len(v) != n:
+            raise LacunaError(f"{what} has {len(v)} entries for {n} trials")
+        return v
+
+    if target not in ("centre", "population"):
+        raise LacunaError(f"target must be 'centre' or 'population', got {target!r}")
+    job = {
+        "target": target,
+        "effective_samples": None if effective_samples is None else float(effective_samples),
+        "unit": unit,
+        "samples": None if samples is None else int(samples),
+        "schemes": [str(x) for x in schemes],
+        "positions": None
+        if positions is None
+        else {str(k): [float(x) for x in v] for k, v in positions.items()},
+        "repeats": int(repeats),
+        "folds": int(folds),
+        "bootstrap": int(bootstrap),
+        "no_leave_out": not leave_out,
+        "no_validation": not validation,
+        "seed": int(seed),
+        "tol": float(tol),
+        "drop_unobserved": bool(drop_unobserved),
+    }
+    for key in ("samples", "repeats", "folds", "bootstrap", "seed"):
+        if job[key] is not None and job[key] < 0:
+            raise LacunaError(f"{key} must not be negative, got {job[key]}")
+    for key in ("tol", "effective_samples"):
+        if job[key] is not None and not np.isfinite(job[key]):
+            raise LacunaError(f"{key} must be a finite number, got {job[key]}")
+    names: Optional[List[str]] = None if channels is None else [str(c) for c in channels]
+    if names is not None and len(names) != s.shape[1]:
+        raise LacunaError(f"channels names {len(names)} channels, the stack has {s.shape[1]}")
+    text = _lacuna.compare(
+        s,
+        m,
+        w,
+        names,
+        per_trial(labels, "labels"),
+        per_trial(sessions, "sessions"),
+        json.dumps(job, allow_nan=False),
+    )
+    out = json.loads(text)
+    for row in out["schemes"]:
+        if row.get("status") == "ok":
+            row["mean"] = np.array(
+                [[np.nan if x is None else x for x in r] for r in row["mean"]], dtype=np.float64
+            )
     return out
 
 

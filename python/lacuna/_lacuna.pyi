@@ -20,3 +20,12 @@ def schemes() -> List[Tuple[str, str]]: ...
 def extract(
     job_json: str,
 ) -> Tuple[npt.NDArray[np.float64], npt.NDArray[np.bool_], str]: ...
+def compare(
+    stack: npt.NDArray[np.float64],
+    mask: npt.NDArray[np.bool_],
+    weights: Optional[npt.NDArray[np.float64]],
+    channels: Optional[List[str]],
+    labels: Optional[List[str]],
+    sessions: Optional[List[str]],
+    job_json: str,
+) -> str: ...

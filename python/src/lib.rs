@@ -9,7 +9,7 @@ use pyo3::create_exception;
 use pyo3::exceptions::PyValueError;
 use pyo3::prelude::*;
 
-use lacuna::jobs::{ExtractJob, MeanJob};
+use lacuna::jobs::{CompareJob, ExtractJob, MeanJob};
 use lacuna::trials::{Trial, TrialSet};
 
 create_exception!(
@@ -19,8 +19,21 @@ create_exception!(
     "Invalid input or settings, or a computation lacuna cannot vouch for; the message names the trial, channel or setting."
 );
 
+/// The library's message, with advice phrased for Python (keyword
+/// arguments, not command-line flags).
 fn to_py(e: lacuna::LacunaError) -> PyErr {
-    LacunaError::new_err(e.to_string())
+    use lacuna::LacunaError as E;
+    let msg = match &e {
+        E::NeverObserved { .. } => format!("{e}; pass drop_unobserved=True to leave it out"),
+        E::UnknownName {
+            closest: Some(c), ..
+        } => format!("{e} (did you mean '{c}'?)"),
+        E::RankDeficient { .. } => format!(
+            "{e}; regularise first (regularize=\"shrinkage:0.1\", \"loading:0.01\", or \"oas\" with samples=T), or choose a scheme that takes such windows"
+        ),
+        _ => e.to_string(),
+    };
+    LacunaError::new_err(msg)
 }
 
 /// Builds a trial set from a (N, p, p) stack and a (N, p) observation mask.
@@ -159,6 +172,44 @@ fn extract<'py>(
     Ok((covs, mask, record))
 }
 
+/// compare(stack, mask, weights, channels, labels, sessions, job_json) -> comparison_json
+///
+/// Runs `lacuna::jobs::CompareJob` (settings as JSON; missing keys take the
+/// CLI's defaults) and returns the typed comparison as JSON text: the same
+/// document as compare.json (without file provenance).
+#[pyfunction]
+#[pyo3(signature = (stack, mask, weights, channels, labels, sessions, job_json))]
+#[allow(clippy::too_many_arguments)]
+fn compare<'py>(
+    py: Python<'py>,
+    stack: PyReadonlyArray3<'py, f64>,
+    mask: PyReadonlyArray2<'py, bool>,
+    weights: Option<PyReadonlyArray1<'py, f64>>,
+    channels: Option<Vec<String>>,
+    labels: Option<Vec<String>>,
+    sessions: Option<Vec<String>>,
+    job_json: &str,
+) -> PyResult<String> {
+    let job: CompareJob = serde_json::from_str(job_json)
+        .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
+    let shape = stack.shape();
+    let shape = [shape[0], shape[1], shape[2]];
+    let data = stack.as_slice()?.to_vec();
+    let observed = mask.as_slice()?.to_vec();
+    let weights = match weights {
+        Some(w) => Some(w.as_slice()?.to_vec()),
+        None => None,
+    };
+    py.detach(move || -> lacuna::Result<String> {
+        let mut set = trial_set(&data, shape, &observed, weights, channels)?;
+        set.labels = labels;
+        set.sessions = sessions;
+        let result = job.run(set, None)?;
+        Ok(String::from_utf8_lossy(&lacuna::output::json_bytes(&result)).into_owned())
+    })
+    .map_err(to_py)
+}
+
 /// The averaging schemes: a list of (name, what it assumes) pairs.
 #[pyfunction]
 fn schemes() -> Vec<(String, String)> {
@@ -175,5 +226,6 @@ fn _lacuna(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(mean, m)?)?;
     m.add_function(wrap_pyfunction!(schemes, m)?)?;
     m.add_function(wrap_pyfunction!(extract, m)?)?;
+    m.add_function(wrap_pyfunction!(compare, m)?)?;
     Ok(())
 }

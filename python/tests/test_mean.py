@@ -169,7 +169,7 @@ def test_bad_stacks_raise(make, error, words):
         ({"tol": 5.0}, "tol"),
         ({"max_iter": -1}, "max_iter"),
         ({"scheme": "airm-observd"}, "did you mean 'airm-observed'"),
-        ({"init": "middle"}, "unknown init"),
+        ({"init": "middle"}, "init: .middle. is not one of"),
         ({"channels": ["a", "b", "c"]}, "channels"),
         ({"channels": ["a", "a", "b", "c"]}, "repeated"),
         ({"regularize": "shrinkage:7"}, "regularize"),

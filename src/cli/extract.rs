@@ -5,11 +5,9 @@ use std::path::{Path, PathBuf};
 
 use clap::Args;
 use lacuna::Result;
-use lacuna::ingest::detect::Reason;
-use lacuna::ingest::pipeline::{ExtractOptions, Extraction};
-use lacuna::jobs::ExtractJob;
+use lacuna::jobs::extract::ExtractRun;
+use lacuna::jobs::{ExtractJob, ExtractionRecord};
 use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan};
-use serde_json::json;
 
 #[derive(Args, Debug)]
 #[command(after_help = "Examples:
@@ -160,7 +158,7 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
         unit: a.unit.clone(),
     };
     // Every setting checked before any file is read; messages name the flags.
-    job.validate().map_err(super::ranges::as_flag)?;
+    job.validate()?;
     let show = !a.quiet && std::io::stderr().is_terminal();
     let progress = |done: u64, total: u64| {
         if show {
@@ -187,74 +185,67 @@ pub fn run(a: ExtractArgs) -> Result<i32> {
             eprintln!("note: {n}");
         }
     }
-    let (out, set, elapsed) = (&run.extraction, &run.set, run.elapsed_seconds);
-    write_outputs(
-        &a,
-        out,
-        set,
-        &run.sources,
-        &run.options,
-        elapsed,
-        run.unit.as_deref(),
-    )?;
-    let summary = summary_json(out, set, elapsed);
+    let provenance = {
+        let mut paths: Vec<&Path> = a.recordings.iter().map(PathBuf::as_path).collect();
+        paths.extend(a.events.iter().map(PathBuf::as_path));
+        for p in [&a.epochs, &a.mask].into_iter().flatten() {
+            paths.push(p);
+        }
+        lacuna::report::provenance::provenance(&paths)?
+    };
+    let record = run.record(
+        Some(provenance),
+        a.mask.as_ref().map(|m| m.display().to_string()),
+    );
+    // Everything is encoded before the first file is written.
+    let mut files = vec![
+        (a.out.join("covs.npy"), encode_stack_with_nan(&run.set)),
+        (a.out.join("mask.npy"), encode_mask(&run.set)),
+        (a.out.join("mask.csv"), encode_mask_csv(&run.set)),
+        (a.out.join("labels.csv"), run.labels_table()),
+        (
+            a.out.join("epochs.json"),
+            lacuna::output::json_bytes(&record),
+        ),
+    ];
+    if let Some(path) = &a.mask_report {
+        files.push((path.clone(), run.mask_report_table()));
+    }
+    lacuna::output::write_outputs(Some(&a.out), files)?;
     if a.json {
-        println!("{}", serde_json::to_string_pretty(&summary).expect("JSON"));
+        println!(
+            "{}",
+            String::from_utf8_lossy(&lacuna::output::json_bytes(&record.summary))
+        );
     } else if !a.quiet {
-        print_summary(&a, out, set);
+        print_summary(&a, &run, &record);
     }
     Ok(0)
 }
 
-fn reason_counts(out: &Extraction) -> serde_json::Map<String, serde_json::Value> {
-    let mut m = serde_json::Map::new();
-    for r in Reason::ALL {
-        let n = out.masked.iter().filter(|c| c.reason == r).count();
-        if n > 0 {
-            m.insert(r.name().into(), json!(n));
-        }
-    }
-    m
-}
-
-fn summary_json(out: &Extraction, set: &lacuna::TrialSet, elapsed: f64) -> serde_json::Value {
-    let cells = out.epochs.len() * out.channels.len();
-    json!({
-        "epochs": out.epochs.len(),
-        "trials": set.len(),
-        "channels": out.channels.len(),
-        "masked_cells": out.masked.len(),
-        "masked_fraction": out.masked.len() as f64 / cells.max(1) as f64,
-        "reasons": reason_counts(out),
-        "empty_epochs": out.empty_epochs,
-        "set_aside": out.set_aside,
-        "notes": out.notes,
-        "seconds": elapsed,
-    })
-}
-
-fn print_summary(a: &ExtractArgs, out: &Extraction, set: &lacuna::TrialSet) {
-    let cells = out.epochs.len() * out.channels.len();
+fn print_summary(a: &ExtractArgs, run: &ExtractRun, record: &ExtractionRecord) {
+    let s = &record.summary;
+    let cells = s.epochs * s.channels;
     println!(
         "{} epochs × {} channels → {} trials; {} of {} cells masked ({:.1}%)",
-        out.epochs.len(),
-        out.channels.len(),
-        set.len(),
-        out.masked.len(),
+        s.epochs,
+        s.channels,
+        s.trials,
+        s.masked_cells,
         cells,
-        100.0 * out.masked.len() as f64 / cells.max(1) as f64
+        100.0 * s.masked_fraction
     );
-    for (reason, n) in reason_counts(out) {
+    for (reason, n) in &s.reasons {
         println!("  {reason:<22} {n}");
     }
-    if !out.empty_epochs.is_empty() {
+    if !s.empty_epochs.is_empty() {
         println!(
             "  {} epoch(s) lost every channel and are not trials: {:?}",
-            out.empty_epochs.len(),
-            out.empty_epochs
+            s.empty_epochs.len(),
+            s.empty_epochs
         );
     }
-    for note in &out.notes {
+    for note in &run.extraction.notes {
         println!("note: {note}");
     }
     println!(
@@ -265,134 +256,4 @@ fn print_summary(a: &ExtractArgs, out: &Extraction, set: &lacuna::TrialSet) {
         "next: lacuna mean --covs {0}/covs.npy --mask {0}/mask.csv --out mean.csv",
         a.out.display()
     );
-}
-
-#[allow(clippy::too_many_arguments)]
-fn write_outputs(
-    a: &ExtractArgs,
-    out: &Extraction,
-    set: &lacuna::TrialSet,
-    sources: &[(String, String)],
-    opts: &ExtractOptions,
-    elapsed: f64,
-    unit: Option<&str>,
-) -> Result<()> {
-    // Everything is encoded before the first file is written.
-    let mask_csv = encode_mask_csv(set);
-    let mut labels = String::from("label,session\n");
-    let kept: Vec<usize> = (0..out.epochs.len())
-        .filter(|e| !out.empty_epochs.contains(e))
-        .collect();
-    for &e in &kept {
-        let info = &out.epochs[e];
-        labels.push_str(&lacuna::trials::io::csv_row(&[
-            info.label.clone().unwrap_or_default(),
-            info.session.clone(),
-        ]));
-    }
-    let p = out.channels.len();
-    let epochs_json: Vec<serde_json::Value> = out
-        .epochs
-        .iter()
-        .enumerate()
-        .map(|(e, info)| {
-            let masked: Vec<serde_json::Value> = out
-                .masked
-                .iter()
-                .filter(|m| m.epoch == e)
-                .map(|m| json!({"channel": m.channel, "reason": m.reason.name()}))
-                .collect();
-            json!({
-                "epoch": e,
-                "trial": kept.iter().position(|&k| k == e),
-                "session": info.session,
-                "onset_s": info.onset,
-                "duration_s": info.duration,
-                "label": info.label,
-                "observed_channels": info.observed,
-                "shrinkage": info.shrinkage,
-                "rank": info.rank,
-                "masked": masked,
-            })
-        })
-        .collect();
-    let provenance = {
-        let mut paths: Vec<&Path> = a.recordings.iter().map(PathBuf::as_path).collect();
-        paths.extend(a.events.iter().map(PathBuf::as_path));
-        for p in [&a.epochs, &a.mask].into_iter().flatten() {
-            paths.push(p);
-        }
-        lacuna::report::provenance::provenance(&paths)?
-    };
-    let lengths: Vec<usize> = out.epochs.iter().map(|e| e.samples).collect();
-    let samples_per_epoch = lengths
-        .first()
-        .filter(|&&f| lengths.iter().all(|&x| x == f))
-        .copied();
-    let meta = json!({
-        "lacuna_epochs_version": "1",
-        "lacuna_version": env!("CARGO_PKG_VERSION"),
-        "caution": "Research software, not a medical device: results inform analysis; they do not diagnose.",
-        "channels": out.channels,
-        "sessions": sources.iter().map(|(s, f)| json!({"session": s, "source": f})).collect::<Vec<_>>(),
-        "sampling_rates_hz": out.sampling_rates,
-        "band_hz": opts.band.map(|(l, h)| vec![l, h]),
-        "filter": opts.band.map(|_| format!("Butterworth order {} band-pass, forward-backward (zero phase)", opts.order)),
-        "estimator": opts.estimator.name(),
-        // Every window has the same length when all of them do; later
-        // commands (compare --epochs) take T and the degrees of freedom here.
-        "samples_per_epoch": samples_per_epoch,
-        "unit": unit.map(super::display_unit),
-        "covariance_unit": super::covariance_unit(unit),
-        "provenance": provenance,
-        "detection": opts.detect,
-        "user_bad_channels": opts.bad_channels,
-        "user_mask": a.mask.as_ref().map(|m| m.display().to_string()),
-        "set_aside": out.set_aside,
-        "notes": out.notes,
-        "summary": summary_json(out, set, elapsed),
-        "epochs": epochs_json,
-        "masked_per_channel": out.channels.iter().map(|c| json!({
-            "channel": c,
-            "masked": out.masked.iter().filter(|m| &m.channel == c).count(),
-        })).collect::<Vec<_>>(),
-        "cells": out.epochs.len() * p,
-    });
-    let report = a.mask_report.as_ref().map(|_| {
-        let mut s = String::from(
-            "epoch,session,onset_s,channel,reason,non_finite,rail_fraction,robust_sd,high_band_mad,max_correlation\n",
-        );
-        for m in &out.masked {
-            let info = &out.epochs[m.epoch];
-            s.push_str(&lacuna::trials::io::csv_row(&[
-                m.epoch.to_string(),
-                info.session.clone(),
-                info.onset.to_string(),
-                m.channel.clone(),
-                m.reason.name().to_string(),
-                m.stats.non_finite.to_string(),
-                m.stats.rail_fraction.to_string(),
-                m.stats.robust_sd.to_string(),
-                m.stats.high_band_mad.map_or(String::new(), |v| v.to_string()),
-                m.stats.max_correlation.to_string(),
-            ]));
-        }
-        s
-    });
-    let mut files = vec![
-        (a.out.join("covs.npy"), encode_stack_with_nan(set)),
-        (a.out.join("mask.npy"), encode_mask(set)),
-        (a.out.join("mask.csv"), mask_csv),
-        (a.out.join("labels.csv"), labels.into_bytes()),
-        (
-            a.out.join("epochs.json"),
-            serde_json::to_string_pretty(&meta)
-                .unwrap_or_default()
-                .into_bytes(),
-        ),
-    ];
-    if let (Some(path), Some(text)) = (&a.mask_report, report) {
-        files.push((path.clone(), text.into_bytes()));
-    }
-    lacuna::output::write_outputs(Some(&a.out), files)
 }

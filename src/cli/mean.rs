@@ -48,8 +48,9 @@ pub struct MeanArgs {
     #[arg(long, default_value_t = 1e-10)]
     tol: f64,
     /// Give up after this many iterations (the mean is still written; exit 4).
-    #[arg(long, default_value_t = 500)]
-    max_iter: usize,
+    /// Default 500; gaussian-em 5000 (EM takes many cheap steps).
+    #[arg(long, value_name = "N")]
+    max_iter: Option<usize>,
     /// Starting point of airm-observed: available-case, diagonal or scaled-identity.
     #[arg(long, default_value = "available-case")]
     init: String,
@@ -128,7 +129,7 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         unit: a.unit.clone(),
     };
     // Settings are checked before any file is read.
-    job.options(None).map_err(super::ranges::as_flag)?;
+    job.options(None)?;
     {
         let mut inputs: Vec<(&str, &std::path::Path)> = vec![("--covs", &a.covs)];
         for (o, p) in [

@@ -5,10 +5,10 @@
 //! (0 ok, 1 output failure, 2 usage, 3 invalid input, 4 numerical failure).
 
 mod compare;
+mod errors;
 mod extract;
 mod mean;
 mod progress;
-mod ranges;
 mod report;
 mod synth;
 
@@ -126,13 +126,11 @@ pub fn run() -> i32 {
     match outcome {
         Ok(code) => code,
         Err(e) => {
-            eprintln!("error: {e}");
-            e.exit_code()
+            eprintln!("error: {}", errors::describe(&e));
+            errors::exit_code(&e)
         }
     }
 }
-
-pub use lacuna::jobs::mean::{covariance_unit, degrees_of_freedom, display_unit};
 
 /// Channel names from `--channels`: a comma-separated list, or a file holding
 /// the names (one per line or comma-separated). A CSV mask's header, when

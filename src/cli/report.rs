@@ -3,6 +3,8 @@
 use std::path::{Path, PathBuf};
 
 use clap::Args;
+use lacuna::jobs::comparison::COMPARE_VERSION;
+use lacuna::jobs::{Comparison, ExtractionRecord};
 use lacuna::output::write_atomic;
 use lacuna::{LacunaError, Result};
 
@@ -29,8 +31,9 @@ pub struct ReportArgs {
     out: PathBuf,
 }
 
-/// Reads and parses a JSON file, naming it in errors.
-pub fn read_json(path: &Path) -> Result<serde_json::Value> {
+/// Reads a JSON file into a typed result, naming the file and what it
+/// should have been in errors.
+pub fn read_typed<T: serde::de::DeserializeOwned>(path: &Path, what: &str) -> Result<T> {
     lacuna::trials::io::require_regular(path)?;
     let text = std::fs::read_to_string(path).map_err(|source| LacunaError::Read {
         path: path.to_path_buf(),
@@ -38,7 +41,7 @@ pub fn read_json(path: &Path) -> Result<serde_json::Value> {
     })?;
     serde_json::from_str(&text).map_err(|e| LacunaError::Format {
         path: path.to_path_buf(),
-        message: format!("not valid JSON: {e}"),
+        message: format!("not {what} of this lacuna version: {e}"),
     })
 }
 
@@ -51,42 +54,59 @@ pub fn run(a: ReportArgs) -> Result<i32> {
         }
         lacuna::output::check_paths(&inputs, &[("--out", &a.out)], &[])?;
     }
-    let compare = read_json(&path)?;
-    if compare["compare_version"].as_str() != Some("1") {
+    let compare: Comparison = read_typed(&path, "a compare.json")?;
+    if compare.compare_version != COMPARE_VERSION {
         return Err(LacunaError::Format {
             path,
-            message: "not a compare.json of this lacuna version (compare_version \"1\" expected)"
-                .into(),
+            message: format!(
+                "not a compare.json of this lacuna version (compare_version \"{COMPARE_VERSION}\" expected, found \"{}\")",
+                compare.compare_version
+            ),
         });
     }
-    lacuna::report::compare_check::check_compare(&compare).map_err(|why| LacunaError::Format {
+    compare.check().map_err(|why| LacunaError::Format {
         path: path.clone(),
         message: format!("{why}; rerun `lacuna compare` to rebuild the folder"),
     })?;
-    let epochs = match &a.epochs {
+    // Beside the trial set, when not given: <compare's --covs folder>/epochs.json.
+    let epochs_path = a.epochs.clone().or_else(|| epochs_beside(&compare));
+    let epochs: Option<ExtractionRecord> = match &epochs_path {
         Some(e) => {
-            let doc = read_json(e)?;
-            let channels: Vec<String> = compare["channels"]
-                .as_array()
-                .map(|a| {
-                    a.iter()
-                        .filter_map(|v| v.as_str().map(str::to_string))
-                        .collect()
-                })
-                .unwrap_or_default();
-            let n = compare["trials"].as_u64().unwrap_or(0) as usize;
-            lacuna::report::epochs_check::check_epochs_match(&doc, &channels, n, None).map_err(
-                |why| LacunaError::Format {
-                    path: e.clone(),
-                    message: format!("does not describe the trial set of {}: {why}; pass the epochs.json written with those covariances", path.display()),
-                },
-            )?;
-            Some(doc)
+            let rec: ExtractionRecord = read_typed(e, "an epochs.json of `lacuna extract`")?;
+            lacuna::report::epochs_check::check_epochs_match(
+                &rec,
+                &compare.channels,
+                compare.trials,
+                None,
+            )
+            .map_err(|why| LacunaError::Format {
+                path: e.clone(),
+                message: format!("does not describe the trial set of {}: {why}; pass the epochs.json written with those covariances", path.display()),
+            })?;
+            Some(rec)
         }
         None => None,
     };
     let html = lacuna::report::html::render(&compare, epochs.as_ref());
     write_atomic(&a.out, html.as_bytes())?;
-    eprintln!("wrote {}", a.out.display());
+    println!("wrote {}", a.out.display());
+    match (&a.epochs, &epochs_path) {
+        (None, Some(e)) => println!(
+            "dropout raster from {} (found beside the trial set)",
+            e.display()
+        ),
+        (None, None) => println!(
+            "no dropout raster: give --epochs trials/epochs.json (written by `lacuna extract`) to draw it"
+        ),
+        _ => {}
+    }
     Ok(0)
+}
+
+/// epochs.json in the folder of the covariance stack the comparison read,
+/// when it is there (the layout `lacuna extract` writes).
+fn epochs_beside(c: &Comparison) -> Option<PathBuf> {
+    let covs = c.provenance.as_ref()?.inputs.first()?;
+    let candidate = Path::new(&covs.path).parent()?.join("epochs.json");
+    candidate.is_file().then_some(candidate)
 }

@@ -1,5 +1,6 @@
 //! `lacuna synth`: simulated data with known truth, for trying things out.
 
+use lacuna::report::tables;
 use std::path::{Path, PathBuf};
 
 use clap::{Args, ValueEnum};
@@ -95,15 +96,15 @@ pub fn run(a: SynthArgs) -> Result<i32> {
     let channels = a.channels.unwrap_or(default_channels);
     // One documented range per option (see --help); the covariance-level
     // scenarios need more samples than channels for SPD trial covariances.
-    use super::ranges::{float_in, int_in};
-    int_in("--channels", channels, 2, 256)?;
-    int_in("--trials", trials, 1, 100_000)?;
-    int_in("--sessions", a.sessions, 1, 100)?;
-    int_in("--rate", a.rate, 64, 5000)?;
-    int_in("--samples", a.samples, channels + 1, 1_000_000)?;
-    float_in("--dropout", a.dropout, 0.0, 1.0)?;
-    int_in("--max-lost", a.max_lost, 1, channels - 1)?;
-    float_in("--condition", a.condition, 1.0, 1e8)?;
+    use lacuna::error::{float_in, int_in};
+    int_in("channels", channels, (2, 256))?;
+    int_in("trials", trials, (1, 100_000))?;
+    int_in("sessions", a.sessions, (1, 100))?;
+    int_in("rate", a.rate, (64, 5000))?;
+    int_in("samples", a.samples, (channels + 1, 1_000_000))?;
+    float_in("dropout", a.dropout, (0.0, 1.0))?;
+    int_in("max_lost", a.max_lost, (1, channels - 1))?;
+    float_in("condition", a.condition, (1.0, 1e8))?;
     std::fs::create_dir_all(&a.out).map_err(|source| LacunaError::Write {
         path: a.out.clone(),
         source,
@@ -116,14 +117,15 @@ pub fn run(a: SynthArgs) -> Result<i32> {
                 ..HeadsetParams::default()
             });
             write_set(&a.out, &study.trials)?;
-            let mut labels = String::from("label,session\n");
-            for (l, s) in study.labels.iter().zip(&study.sessions) {
-                labels.push_str(&lacuna::trials::io::csv_row(&[
-                    l.to_string(),
-                    s.to_string(),
-                ]));
-            }
-            write_atomic(&a.out.join("labels.csv"), labels.as_bytes())?;
+            let labels = tables::table(
+                &["label", "session"],
+                study
+                    .labels
+                    .iter()
+                    .zip(&study.sessions)
+                    .map(|(l, s)| vec![l.to_string(), s.to_string()]),
+            );
+            write_atomic(&a.out.join("labels.csv"), &labels)?;
             // The same trials before any electrode was lost: the complete-data
             // reference, and input for the full-data schemes.
             let complete =
@@ -234,39 +236,50 @@ fn write_recording(a: &SynthArgs, trials: usize, channels: usize) -> Result<()> 
             write_atomic(&a.out.join("epochs.npy"), &encode_f64(&[n, p, len], &data))?;
         }
     }
-    let mut labels = String::from("label,session\n");
-    let mut faults = String::from("trial,session,channel,fault\n");
-    let mut mask = lacuna::trials::io::csv_row(&study.channels);
-    for (i, (label, row)) in study.labels.iter().zip(&study.faults).enumerate() {
-        let session = format!("session-{}", i / trials + 1);
-        labels.push_str(&lacuna::trials::io::csv_row(&[
-            label.to_string(),
-            session.clone(),
-        ]));
-        let cells: Vec<&str> = row
+    let session = |i: usize| format!("session-{}", i / trials + 1);
+    let labels = tables::table(
+        &["label", "session"],
+        study
+            .labels
             .iter()
-            .map(|f| if f.is_some() { "0" } else { "1" })
-            .collect();
-        mask.push_str(&cells.join(","));
-        mask.push('\n');
+            .enumerate()
+            .map(|(i, l)| vec![l.to_string(), session(i)]),
+    );
+    let mut fault_rows = Vec::new();
+    for (i, row) in study.faults.iter().enumerate() {
         for (c, f) in row.iter().enumerate() {
             if let Some(f) = f {
-                faults.push_str(&format!(
-                    "{i},{session},{},{}\n",
-                    study.channels[c],
-                    f.name()
-                ));
+                fault_rows.push(vec![
+                    i.to_string(),
+                    session(i),
+                    study.channels[c].clone(),
+                    f.name().to_string(),
+                ]);
             }
         }
     }
-    let mut positions = String::from("channel,x,y,z\n");
-    for (name, q) in study.channels.iter().zip(&study.positions) {
-        positions.push_str(&format!("{name},{:.6},{:.6},{:.6}\n", q[0], q[1], q[2]));
-    }
-    write_atomic(&a.out.join("truth-labels.csv"), labels.as_bytes())?;
-    write_atomic(&a.out.join("truth-faults.csv"), faults.as_bytes())?;
-    write_atomic(&a.out.join("truth-mask.csv"), mask.as_bytes())?;
-    write_atomic(&a.out.join("positions.csv"), positions.as_bytes())?;
+    let faults = tables::table(&["trial", "session", "channel", "fault"], fault_rows);
+    let observed: Vec<bool> = study.faults.iter().flatten().map(Option::is_none).collect();
+    let mask = tables::mask(&study.channels, &observed);
+    let positions = tables::table(
+        &["channel", "x", "y", "z"],
+        study
+            .channels
+            .iter()
+            .zip(&study.positions)
+            .map(|(name, q)| {
+                vec![
+                    name.clone(),
+                    format!("{:.6}", q[0]),
+                    format!("{:.6}", q[1]),
+                    format!("{:.6}", q[2]),
+                ]
+            }),
+    );
+    write_atomic(&a.out.join("truth-labels.csv"), &labels)?;
+    write_atomic(&a.out.join("truth-faults.csv"), &faults)?;
+    write_atomic(&a.out.join("truth-mask.csv"), &mask)?;
+    write_atomic(&a.out.join("positions.csv"), &positions)?;
     write_matrix(
         &a.out.join("truth-rest.npy"),
         &study.truth[0],

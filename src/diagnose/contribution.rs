@@ -29,14 +29,17 @@ use crate::spd::kernels::sym_eigen;
 use crate::trials::TrialSet;
 
 /// One channel's contribution.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct ChannelContribution {
     pub channel: String,
     pub trials_observed: usize,
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub weight_share: f64,
     pub coobserved_with: usize,
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub cost_share: f64,
     pub leave_out_influence: Option<f64>,
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub variance: f64,
     /// 5% and 95% bootstrap quantiles of the variance.
     pub variance_interval: Option<[f64; 2]>,
@@ -64,7 +67,7 @@ pub fn cost_split(set: &TrialSet, mean: &Mat) -> Vec<f64> {
         .zip(w.par_iter())
         .map(|(t, &wi)| {
             let o = &t.observed;
-            let m = Mat::from_fn(o.len(), o.len(), |a, b| mean[(o[a], o[b])]);
+            let m = crate::spd::sub_block(mean, o);
             let isq = sym_eigen(&m).apply(|v| 1.0 / v.sqrt());
             let inner = crate::spd::symmetrize(&(&isq * &t.block * &isq));
             let log = sym_eigen(&inner).apply(f64::ln);
@@ -119,7 +122,7 @@ pub fn contributions(
                 } else {
                     set.select_trials(&keep).ok()?.without_channels(&[c]).ok()?
                 };
-                let start = Mat::from_fn(p - 1, p - 1, |a, b| mean[(rest[a], rest[b])]);
+                let start = crate::spd::sub_block(mean, &rest);
                 let o = SchemeOptions {
                     warm_start: Some(std::sync::Arc::new(start.clone())),
                     observer: None,

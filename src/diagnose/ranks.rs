@@ -17,7 +17,7 @@ use std::collections::BTreeMap;
 use crate::trials::TrialSet;
 
 /// One rank-deficient trial.
-#[derive(Debug, Clone, serde::Serialize)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub struct DeficientTrial {
     /// Trial index (0-based).
     pub trial: usize,
@@ -26,16 +26,16 @@ pub struct DeficientTrial {
     /// Numerical rank of its block.
     pub rank: usize,
     /// Likely cause: average-reference, short-window or other.
-    pub cause: &'static str,
+    pub cause: String,
 }
 
 /// Ranks of a trial set.
-#[derive(Debug, Clone, serde::Serialize)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub struct RankTable {
     /// Trials whose block has full rank.
     pub full_rank: usize,
     /// Rank-deficient trials by cause.
-    pub by_cause: BTreeMap<&'static str, usize>,
+    pub by_cause: BTreeMap<String, usize>,
     /// Every rank-deficient trial.
     pub deficient: Vec<DeficientTrial>,
 }
@@ -57,12 +57,12 @@ pub fn rank_table(set: &TrialSet, samples: Option<usize>) -> RankTable {
         } else {
             "other"
         };
-        *by_cause.entry(cause).or_insert(0) += 1;
+        *by_cause.entry(cause.to_string()).or_insert(0) += 1;
         deficient.push(DeficientTrial {
             trial: i,
             size: k,
             rank,
-            cause,
+            cause: cause.into(),
         });
     }
     RankTable {

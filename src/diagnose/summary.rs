@@ -72,8 +72,7 @@ pub fn summarize(set: &TrialSet, mean: &Mat) -> MeanSummary {
         .iter()
         .take(50)
         .map(|g| {
-            let k = g.observed.len();
-            let sub = Mat::from_fn(k, k, |a, b| mean[(g.observed[a], g.observed[b])]);
+            let sub = crate::spd::sub_block(mean, &g.observed);
             let ws: f64 = g.trials.iter().map(|&i| w[i]).sum();
             let mld = g
                 .trials

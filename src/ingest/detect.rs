@@ -75,7 +75,7 @@ impl Reason {
 }
 
 /// Thresholds of the detection rules (see the module documentation).
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct DetectOptions {
     /// Turn automatic detection off (only non-finite samples and user marks count).
     pub enabled: bool,

@@ -118,18 +118,20 @@ impl ExtractJob {
         self.validate()?;
         let mut warnings = Vec::new();
         let mut notes = Vec::new();
-        let estimator = Estimator::parse(&self.estimator).ok_or_else(|| {
-            LacunaError::InvalidOption(format!(
-                "--estimator {}: choose oas, ledoit-wolf or sample",
-                self.estimator
-            ))
-        })?;
+        let estimator =
+            Estimator::parse(&self.estimator).ok_or_else(|| LacunaError::UnknownName {
+                setting: "estimator".into(),
+                value: self.estimator.clone(),
+                valid: ["oas", "ledoit-wolf", "sample"].map(String::from).to_vec(),
+                closest: None,
+            })?;
         let band = self.band.as_deref().map(parse_band).transpose()?;
         let mut inputs = Vec::new();
         let mut edf_units: Vec<String> = Vec::new();
         if let Some(path) = &self.epochs {
-            let rate = self.rate.ok_or_else(|| {
-                LacunaError::InvalidOption("--epochs needs the sampling rate: --rate HZ".into())
+            let rate = self.rate.ok_or_else(|| LacunaError::MissingSetting {
+                setting: "rate".into(),
+                needed_for: "ready epochs (NPY)".into(),
             })?;
             let names = (!self.channels.is_empty()).then(|| self.channels.clone());
             let (source, epochs) = read_npy_epochs(path, rate, names)?;
@@ -142,12 +144,12 @@ impl ExtractJob {
         } else {
             if self.recordings.is_empty() {
                 return Err(LacunaError::InvalidOption(
-                    "give one or more recordings (EDF/BDF/CSV), or --epochs FILE.npy".into(),
+                    "give one or more recordings (EDF/BDF/CSV), or ready epochs (NPY)".into(),
                 ));
             }
             if !self.events.is_empty() && self.events.len() != self.recordings.len() {
                 return Err(LacunaError::InvalidOption(format!(
-                    "{} --events files for {} recordings: give one per recording, in the same order",
+                    "{} events files for {} recordings: give one per recording, in the same order",
                     self.events.len(),
                     self.recordings.len()
                 )));
@@ -157,11 +159,12 @@ impl ExtractJob {
                     .extension()
                     .is_some_and(|e| e.eq_ignore_ascii_case("csv"));
                 let (source, annotations): (Box<dyn SignalSource + Send>, Vec<Event>) = if is_csv {
-                    let rate = self.rate.ok_or_else(|| {
-                        LacunaError::InvalidOption(format!(
-                            "{}: a CSV recording carries no sampling rate; give it with --rate HZ",
+                    let rate = self.rate.ok_or_else(|| LacunaError::MissingSetting {
+                        setting: "rate".into(),
+                        needed_for: format!(
+                            "{} (a CSV recording carries no sampling rate)",
                             path.display()
-                        ))
+                        ),
                     })?;
                     (Box::new(read_signal_csv(path, rate)?), Vec::new())
                 } else {
@@ -277,39 +280,26 @@ impl ExtractJob {
     /// same ranges in `--help`); nothing is silently changed.
     pub fn validate(&self) -> Result<()> {
         const DAY: f64 = 86_400.0;
-        let float_in = |name: &str, v: f64, lo: f64, hi: f64| {
-            if v.is_finite() && v >= lo && v <= hi {
-                Ok(())
-            } else {
-                Err(LacunaError::InvalidOption(format!(
-                    "{name} must be a finite number between {lo:e} and {hi:e}, got {v}"
-                )))
-            }
-        };
+        use super::{float_in, int_in};
         if let Some(r) = self.rate {
-            float_in("rate", r, 1e-3, 1e6)?;
+            float_in("rate", r, (1e-3, 1e6))?;
         }
-        float_in("offset", self.offset, -DAY, DAY)?;
+        float_in("offset", self.offset, (-DAY, DAY))?;
         for (name, v) in [
             ("length", self.length),
             ("window", self.window),
             ("step", self.step),
         ] {
             if let Some(v) = v {
-                float_in(name, v, 1e-6, DAY)?;
+                float_in(name, v, (1e-6, DAY))?;
             }
         }
-        if !(1..=10).contains(&self.order) {
-            return Err(LacunaError::InvalidOption(format!(
-                "order must be between 1 and 10, got {}",
-                self.order
-            )));
-        }
-        float_in("amplitude_z", self.amplitude_z, 0.5, 100.0)?;
-        float_in("broadband_z", self.broadband_z, 0.5, 100.0)?;
-        float_in("min_correlation", self.min_correlation, 0.0, 1.0)?;
-        float_in("flat_ratio", self.flat_ratio, 0.0, 1.0)?;
-        float_in("rail_fraction", self.rail_fraction, 1e-6, 1.0)
+        int_in("order", self.order, (1, 10))?;
+        float_in("amplitude_z", self.amplitude_z, (0.5, 100.0))?;
+        float_in("broadband_z", self.broadband_z, (0.5, 100.0))?;
+        float_in("min_correlation", self.min_correlation, (0.0, 1.0))?;
+        float_in("flat_ratio", self.flat_ratio, (0.0, 1.0))?;
+        float_in("rail_fraction", self.rail_fraction, (1e-6, 1.0))
     }
 
     fn windowing(&self, events: Vec<Event>, source: &str) -> Result<Windowing> {
@@ -321,7 +311,7 @@ impl ExtractJob {
         }
         if events.is_empty() {
             return Err(LacunaError::Unsupported(format!(
-                "{source}: no events (no --events file and no EDF+/BDF+ annotations); give --events or use fixed windows with --window"
+                "{source}: no events (no events file and no EDF+/BDF+ annotations); give an events CSV, or use fixed windows"
             )));
         }
         let length = match self.length {
@@ -332,7 +322,7 @@ impl ExtractJob {
                     d
                 } else {
                     return Err(LacunaError::InvalidOption(format!(
-                        "{source}: events have different or zero durations; give the epoch length with --length"
+                        "{source}: events have different or zero durations; give the epoch length"
                     )));
                 }
             }
@@ -348,11 +338,8 @@ impl ExtractJob {
 
 pub fn parse_band(s: &str) -> Result<(f64, f64)> {
     let parts: Vec<&str> = s.split(['-', ',', ':']).collect();
-    let bad = || {
-        LacunaError::InvalidOption(format!(
-            "--band {s:?}: write it as LOW-HIGH in Hz, e.g. 8-30"
-        ))
-    };
+    let bad =
+        || LacunaError::InvalidOption(format!("band {s:?}: write it as LOW-HIGH in Hz, e.g. 8-30"));
     if parts.len() != 2 {
         return Err(bad());
     }

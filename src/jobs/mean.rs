@@ -21,11 +21,11 @@ use crate::{LacunaError, MeanResult, Result, SchemeOptions, scheme_by_name};
 /// Accepted ranges of the numeric settings (inclusive). The CLI states and
 /// checks the same ranges under its flag names.
 pub mod ranges {
-    pub const TOL: (f64, f64) = (1e-300, 0.1);
-    pub const MAX_ITER: (usize, usize) = (1, 1_000_000);
+    pub const TOL: (f64, f64) = crate::solve::StopRule::TOL;
+    pub const MAX_ITER: (usize, usize) = crate::solve::StopRule::MAX_ITER;
     pub const STARTS: (usize, usize) = (1, 1000);
-    pub const LOADING: (f64, f64) = (1e-300, 1e6);
-    pub const SHRINKAGE: (f64, f64) = (1e-300, 1.0);
+    pub const LOADING: (f64, f64) = crate::schemes::LOADING_RANGE;
+    pub const SHRINKAGE: (f64, f64) = crate::schemes::SHRINKAGE_RANGE;
     pub const SAMPLES: (usize, usize) = (2, 1_000_000_000);
     pub const RANK: (usize, usize) = (1, 100_000);
     pub const EFFECTIVE_SAMPLES: (f64, f64) = (1e-300, 1e9);
@@ -39,7 +39,8 @@ pub struct MeanJob {
     pub scheme: String,
     /// Stop when the whitened Riemannian gradient norm is at or below this.
     pub tol: f64,
-    pub max_iter: usize,
+    /// Iteration cap; None = the scheme's default (500; gaussian-em 5 000).
+    pub max_iter: Option<usize>,
     /// Starting point of airm-observed: available-case, diagonal, scaled-identity.
     pub init: String,
     /// Starts of the multi-start check (1 = off).
@@ -72,7 +73,7 @@ impl Default for MeanJob {
         MeanJob {
             scheme: "airm-observed".into(),
             tol: 1e-10,
-            max_iter: 500,
+            max_iter: None,
             init: "available-case".into(),
             starts: 1,
             seed: 0,
@@ -90,41 +91,28 @@ impl Default for MeanJob {
     }
 }
 
-fn float_in(name: &str, v: f64, (lo, hi): (f64, f64)) -> Result<()> {
-    if v.is_finite() && v >= lo && v <= hi {
-        Ok(())
-    } else {
-        Err(LacunaError::InvalidOption(format!(
-            "{name} must be a finite number between {lo:e} and {hi:e}, got {v}"
-        )))
-    }
-}
-
-fn int_in(name: &str, v: usize, (lo, hi): (usize, usize)) -> Result<()> {
-    if v >= lo && v <= hi {
-        Ok(())
-    } else {
-        Err(LacunaError::InvalidOption(format!(
-            "{name} must be between {lo} and {hi}, got {v}"
-        )))
-    }
-}
+use super::{float_in, int_in};
 
 /// Degrees of freedom for the scale-bias correction: `effective` when given,
 /// else `samples − 1` (windows centred on their mean).
 pub fn degrees_of_freedom(samples: Option<usize>, effective: Option<f64>) -> Result<f64> {
     match (effective, samples) {
         (Some(n), _) if n.is_finite() && n > 0.0 && n <= ranges::EFFECTIVE_SAMPLES.1 => Ok(n),
-        (Some(n), _) => Err(LacunaError::InvalidOption(format!(
-            "--effective-samples must be a positive number up to 1e9, got {n}"
-        ))),
+        (Some(n), _) => Err(LacunaError::OutOfRange {
+            setting: "effective_samples".into(),
+            value: n.to_string(),
+            allowed: "a positive number up to 1e9".into(),
+        }),
         (None, Some(t)) if t >= 2 => Ok((t - 1) as f64),
-        (None, Some(t)) => Err(LacunaError::InvalidOption(format!(
-            "--samples must be at least 2 for the scale-bias correction, got {t}"
-        ))),
-        (None, None) => Err(LacunaError::InvalidOption(
-            "--correct-scale needs the samples per window: add --samples T (or --effective-samples N)".into(),
-        )),
+        (None, Some(t)) => Err(LacunaError::OutOfRange {
+            setting: "samples".into(),
+            value: t.to_string(),
+            allowed: "at least 2 for the scale-bias correction".into(),
+        }),
+        (None, None) => Err(LacunaError::MissingSetting {
+            setting: "samples".into(),
+            needed_for: "the scale-bias correction (correct_scale)".into(),
+        }),
     }
 }
 
@@ -150,24 +138,31 @@ impl MeanJob {
     /// solver's options. Nothing is silently changed.
     pub fn options(&self, observer: Option<Observer>) -> Result<SchemeOptions> {
         if scheme_by_name(&self.scheme).is_none() {
-            let names: Vec<&str> = crate::all_schemes().iter().map(|s| s.name()).collect();
-            let hint = crate::schemes::closest_scheme_name(&self.scheme)
-                .map(|n| format!(" (did you mean '{n}'?)"))
-                .unwrap_or_default();
-            return Err(LacunaError::InvalidOption(format!(
-                "unknown scheme '{}'{hint}; choose one of: {}",
-                self.scheme,
-                names.join(", ")
-            )));
+            return Err(LacunaError::UnknownName {
+                setting: "scheme".into(),
+                value: self.scheme.clone(),
+                valid: crate::all_schemes()
+                    .iter()
+                    .map(|s| s.name().to_string())
+                    .collect(),
+                closest: crate::schemes::closest_scheme_name(&self.scheme).map(str::to_string),
+            });
         }
-        let init = InitRule::from_name(&self.init).ok_or_else(|| {
-            LacunaError::InvalidOption(format!(
-                "unknown init '{}'; choose available-case, diagonal or scaled-identity",
-                self.init
-            ))
+        let init = InitRule::from_name(&self.init).ok_or_else(|| LacunaError::UnknownName {
+            setting: "init".into(),
+            value: self.init.clone(),
+            valid: ["available-case", "diagonal", "scaled-identity"]
+                .map(String::from)
+                .to_vec(),
+            closest: None,
         })?;
         float_in("tol", self.tol, ranges::TOL)?;
-        int_in("max_iter", self.max_iter, ranges::MAX_ITER)?;
+        let max_iter = match self.max_iter {
+            Some(m) => m,
+            None => crate::schemes::SchemeId::from_name(&self.scheme)
+                .map_or(500, crate::schemes::SchemeId::default_max_iter),
+        };
+        int_in("max_iter", max_iter, ranges::MAX_ITER)?;
         int_in("starts", self.starts, ranges::STARTS)?;
         float_in("loading", self.loading, ranges::LOADING)?;
         float_in("shrinkage", self.shrinkage, ranges::SHRINKAGE)?;
@@ -180,16 +175,18 @@ impl MeanJob {
         if let Some(pos) = &self.positions {
             for (name, xyz) in pos {
                 if xyz.iter().any(|v| !v.is_finite()) {
-                    return Err(LacunaError::InvalidOption(format!(
-                        "position of channel {name} is not finite: {xyz:?}"
-                    )));
+                    return Err(LacunaError::OutOfRange {
+                        setting: "positions".into(),
+                        value: format!("{name}: {xyz:?}"),
+                        allowed: "finite coordinates".into(),
+                    });
                 }
             }
         }
         Ok(SchemeOptions {
             stop: StopRule {
                 tol: self.tol,
-                max_iter: self.max_iter,
+                max_iter,
             },
             init,
             starts: self.starts,
@@ -209,7 +206,7 @@ impl MeanJob {
             regularize: match &self.regularize {
                 Some(spec) => Some(
                     Regularizer::parse(spec, self.samples)
-                        .map_err(|e| LacunaError::InvalidOption(format!("--regularize {e}")))?,
+                        .map_err(|e| LacunaError::InvalidOption(format!("regularize: {e}")))?,
                 ),
                 None => None,
             },

@@ -8,3 +8,12 @@ pub mod mean;
 
 pub use extract::{ExtractJob, ExtractRun};
 pub use mean::{MeanJob, MeanRun};
+pub mod compare;
+pub mod comparison;
+pub mod extraction_record;
+
+pub use compare::CompareJob;
+pub use comparison::Comparison;
+pub use extraction_record::ExtractionRecord;
+
+pub use crate::error::{float_in, int_in};

@@ -7,42 +7,47 @@
 //! when the trial set's masks are at hand — the same observed channels for
 //! every trial.
 
-use serde_json::Value;
+use crate::jobs::extraction_record::{EpochEntry, ExtractionRecord};
 
-/// Checks `epochs` (an epochs.json document) against a trial set with these
-/// `channels`, `n_trials` trials and, optionally, each trial's observed
-/// channel indices. Returns what disagrees, in words.
+/// Checks `record` (an extraction's epochs.json) against a trial set with
+/// these `channels`, `n_trials` trials and, optionally, each trial's
+/// observed channel indices. Returns what disagrees, in words.
 pub fn check_epochs_match(
-    epochs: &Value,
+    record: &ExtractionRecord,
     channels: &[String],
     n_trials: usize,
     observed: Option<&[Vec<usize>]>,
 ) -> Result<(), String> {
-    let names: Option<Vec<&str>> = epochs["channels"]
-        .as_array()
-        .and_then(|a| a.iter().map(Value::as_str).collect());
-    let Some(names) = names else {
-        return Err("it has no list of channel names".into());
-    };
-    if names.len() != channels.len() || names.iter().zip(channels).any(|(a, b)| a != b) {
+    check_entries(
+        &record.channels,
+        &record.epochs,
+        channels,
+        n_trials,
+        observed,
+    )
+}
+
+fn check_entries(
+    names: &[String],
+    list: &[EpochEntry],
+    channels: &[String],
+    n_trials: usize,
+    observed: Option<&[Vec<usize>]>,
+) -> Result<(), String> {
+    if names != channels {
         return Err(format!(
             "its {} channels ({}) are not the trial set's {} ({})",
             names.len(),
-            preview(names.iter().copied()),
+            preview(names.iter().map(String::as_str)),
             channels.len(),
             preview(channels.iter().map(String::as_str))
         ));
     }
-    let Some(list) = epochs["epochs"].as_array() else {
-        return Err("it has no list of epochs".into());
-    };
     // Kept epochs carry the index of the trial they became.
-    let mut kept: Vec<(usize, &Value)> = Vec::new();
-    for e in list {
-        if let Some(t) = e["trial"].as_u64() {
-            kept.push((t as usize, e));
-        }
-    }
+    let kept: Vec<(usize, &EpochEntry)> = list
+        .iter()
+        .filter_map(|e| e.trial.map(|t| (t, e)))
+        .collect();
     if kept.len() != n_trials {
         return Err(format!(
             "it lists {} kept epochs but the trial set has {n_trials} trials",
@@ -58,10 +63,7 @@ pub fn check_epochs_match(
     }
     if let Some(observed) = observed {
         for (t, e) in kept {
-            let masked: Vec<&str> = e["masked"]
-                .as_array()
-                .map(|m| m.iter().filter_map(|x| x["channel"].as_str()).collect())
-                .unwrap_or_default();
+            let masked: Vec<&str> = e.masked.iter().map(|m| m.channel.as_str()).collect();
             let expected: Vec<usize> = (0..channels.len())
                 .filter(|&c| !masked.contains(&channels[c].as_str()))
                 .collect();
@@ -92,29 +94,50 @@ fn preview<'a>(names: impl Iterator<Item = &'a str>) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use serde_json::json;
+    use crate::jobs::extraction_record::MaskedEntry;
+
+    fn entry(trial: Option<usize>, masked: &[&str]) -> EpochEntry {
+        EpochEntry {
+            epoch: 0,
+            trial,
+            session: "s".into(),
+            onset_s: 0.0,
+            duration_s: 1.0,
+            label: None,
+            observed_channels: 2 - masked.len(),
+            shrinkage: 0.0,
+            rank: 2,
+            masked: masked
+                .iter()
+                .map(|c| MaskedEntry {
+                    channel: c.to_string(),
+                    reason: "user".into(),
+                })
+                .collect(),
+        }
+    }
 
     // Common practice, no source: each kind of mismatch is caught.
     #[test]
     fn mismatches_are_named() {
         let ch: Vec<String> = vec!["A".into(), "B".into()];
-        let doc = json!({"channels": ["A", "B"], "epochs": [
-            {"trial": 0, "masked": []},
-            {"trial": null, "masked": [{"channel": "A"}]},
-            {"trial": 1, "masked": [{"channel": "B"}]},
-        ]});
+        let list = vec![
+            entry(Some(0), &[]),
+            entry(None, &["A"]),
+            entry(Some(1), &["B"]),
+        ];
         let obs = vec![vec![0, 1], vec![0]];
-        assert!(check_epochs_match(&doc, &ch, 2, Some(&obs)).is_ok());
+        assert!(check_entries(&ch, &list, &ch, 2, Some(&obs)).is_ok());
         assert!(
-            check_epochs_match(&doc, &ch, 3, None)
+            check_entries(&ch, &list, &ch, 3, None)
                 .unwrap_err()
                 .contains("2 kept")
         );
         let other: Vec<String> = vec!["A".into(), "C".into()];
-        assert!(check_epochs_match(&doc, &other, 2, None).is_err());
+        assert!(check_entries(&ch, &list, &other, 2, None).is_err());
         let wrong = vec![vec![0, 1], vec![1]];
         assert!(
-            check_epochs_match(&doc, &ch, 2, Some(&wrong))
+            check_entries(&ch, &list, &ch, 2, Some(&wrong))
                 .unwrap_err()
                 .contains("trial 1")
         );

@@ -1,10 +1,12 @@
 //! The self-contained HTML report: inline CSS and SVG, no scripts, no
 //! external resources, readable at 1280 px and printable.
 //!
-//! It formats what `lacuna compare` wrote (compare.json) and, when given,
-//! what `lacuna extract` wrote (epochs.json); it computes nothing new.
+//! It formats a typed [`Comparison`] (what compare.json holds) and, when
+//! given, an [`ExtractionRecord`] (epochs.json); it computes nothing new and
+//! reads nothing else.
 
-use serde_json::Value;
+use crate::jobs::comparison::{Comparison, SchemeMean};
+use crate::jobs::extraction_record::ExtractionRecord;
 
 use super::colors::{diverging, sequential};
 use super::svg::{Svg, escape, fmt_tick, ticks};
@@ -60,28 +62,11 @@ const REASONS: [(&str, &str, &str); 7] = [
     ("user", "X", "#542788"),
 ];
 
-fn f(v: &Value) -> Option<f64> {
-    v.as_f64()
-}
-
-fn matrix(v: &Value) -> Option<Vec<Vec<f64>>> {
-    v.as_array()?
-        .iter()
-        .map(|r| {
-            r.as_array()
-                .map(|r| r.iter().map(|x| x.as_f64().unwrap_or(f64::NAN)).collect())
-        })
+/// A matrix with NaN for missing entries.
+fn dense(m: &[Vec<Option<f64>>]) -> Vec<Vec<f64>> {
+    m.iter()
+        .map(|r| r.iter().map(|x| x.unwrap_or(f64::NAN)).collect())
         .collect()
-}
-
-fn strings(v: &Value) -> Vec<String> {
-    v.as_array()
-        .map(|a| {
-            a.iter()
-                .filter_map(|s| s.as_str().map(str::to_string))
-                .collect()
-        })
-        .unwrap_or_default()
 }
 
 /// A heat map of a p×p matrix with channel names, a colour per cell (value
@@ -404,8 +389,8 @@ fn convergence(series: &[(String, Vec<(f64, f64)>)], title: &str, ylabel: &str) 
 
 /// Dropout raster: epochs across, channels down, a cell per masked
 /// (epoch, channel) coloured and lettered by reason, sessions separated.
-fn raster(epochs: &Value, names: &[String]) -> Option<String> {
-    let list = epochs["epochs"].as_array()?;
+fn raster(epochs: &ExtractionRecord, names: &[String]) -> Option<String> {
+    let list = &epochs.epochs;
     let n = list.len();
     let p = names.len();
     if n == 0 || p == 0 {
@@ -439,16 +424,16 @@ fn raster(epochs: &Value, names: &[String]) -> Option<String> {
     );
     let mut last_session = String::new();
     for (e, ep) in list.iter().enumerate() {
-        let session = ep["session"].as_str().unwrap_or("").to_string();
+        let session = ep.session.clone();
         if session != last_session {
             let x = x0 + e as f64 * cw;
             s.line(x, y0 - 4.0, x, y0 + ch * p as f64, "#1d1d1f", 1.0);
             s.text(x + 2.0, y0 - 6.0, &session, "start", "tick");
             last_session = session;
         }
-        for m in ep["masked"].as_array().into_iter().flatten() {
-            let ch_name = m["channel"].as_str().unwrap_or("");
-            let reason = m["reason"].as_str().unwrap_or("");
+        for m in &ep.masked {
+            let ch_name = m.channel.as_str();
+            let reason = m.reason.as_str();
             let Some(c) = names.iter().position(|n| n == ch_name) else {
                 continue;
             };
@@ -503,69 +488,66 @@ fn figure(svg: &str, caption: &str) -> String {
     )
 }
 
-/// Renders the report from compare.json (and, optionally, epochs.json).
-/// The covariance unit: compare.json's, else the epochs.json's (extract read
-/// it from the recording), else none.
-fn covariance_unit<'a>(compare: &'a Value, epochs: Option<&'a Value>) -> Option<&'a str> {
-    compare["covariance_unit"]
-        .as_str()
-        .or_else(|| epochs.and_then(|e| e["covariance_unit"].as_str()))
+/// The covariance unit: the comparison's, else the extraction's (extract
+/// read it from the recording), else none.
+fn covariance_unit<'a>(
+    compare: &'a Comparison,
+    epochs: Option<&'a ExtractionRecord>,
+) -> Option<&'a str> {
+    compare
+        .covariance_unit
+        .as_deref()
+        .or_else(|| epochs.and_then(|e| e.covariance_unit.as_deref()))
 }
 
-pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
-    let names = strings(&compare["channels"]);
+/// Renders the report of a comparison (and, optionally, its extraction).
+pub fn render(compare: &Comparison, epochs: Option<&ExtractionRecord>) -> String {
+    let names = &compare.channels;
     let p = names.len();
-    let rec = &compare["recommendation"];
-    let best = rec["scheme"].as_str();
+    let rec = compare.recommendation.as_ref();
+    let best = rec.and_then(|r| r.scheme.as_deref());
     let mut body = String::new();
     body.push_str(&format!(
         "<header><h1>lacuna report</h1><p>{} trials × {p} channels · {} schemes compared · seed {} · lacuna {}</p></header>",
-        compare["trials"],
-        compare["schemes"].as_array().map_or(0, Vec::len),
-        compare["seed"],
-        escape(compare["lacuna_version"].as_str().unwrap_or("?"))
+        compare.trials,
+        compare.schemes.len(),
+        compare.seed,
+        escape(&compare.lacuna_version)
     ));
     body.push_str("<p class=\"caution\"><strong>Research software, not a medical device.</strong> These results inform analysis; they do not diagnose. Follow your local rules and licensed clinical practice.</p>");
 
     // Recommendation and ranking.
     let mut sec = String::new();
-    let verdict = match (best, rec["clear"].as_bool()) {
+    let verdict = match (best, rec.map(|r| r.clear)) {
         (Some(b), Some(true)) => format!("Recommended: {b}"),
         (Some(b), _) => format!(
             "No clear winner — best on {}: {b} (tied: {})",
-            match rec["primary"].as_str() {
+            match rec.map(|r| r.primary.as_str()) {
                 Some("held-out-fit") => "held-out fit",
                 _ => "simulated dropout",
             },
-            strings(&rec["tied"]).join(", ")
+            rec.map(|r| r.tied.join(", ")).unwrap_or_default()
         ),
         _ => "No recommendation (validation not run or no scheme completed it)".into(),
     };
     sec.push_str(&format!(
         "<p class=\"verdict\">{}</p><p class=\"note\">Target: {}.</p><ul class=\"reasons\">",
         escape(&verdict),
-        match compare["target"].as_str() {
-            Some("population") => "the population covariance",
-            _ => "the Riemannian centre of the trials",
+        match compare.target {
+            crate::select::Target::Population => "the population covariance",
+            crate::select::Target::Centre => "the Riemannian centre of the trials",
         }
     ));
-    for r in strings(&rec["reasons"]) {
-        sec.push_str(&format!("<li>{}</li>", escape(&r)));
+    for r in rec.map(|r| r.reasons.as_slice()).unwrap_or_default() {
+        sec.push_str(&format!("<li>{}</li>", escape(r)));
     }
     sec.push_str("</ul>");
-    let mut scores: Vec<(String, f64, f64, f64)> = compare["simulated_dropout"]["scores"]
-        .as_array()
-        .into_iter()
-        .flatten()
-        .filter(|s| s["partial_channels"].is_null())
-        .filter_map(|s| {
-            Some((
-                s["scheme"].as_str()?.to_string(),
-                f(&s["median"])?,
-                f(&s["q1"])?,
-                f(&s["q3"])?,
-            ))
-        })
+    let mut scores: Vec<(String, f64, f64, f64)> = compare
+        .simulated_dropout
+        .iter()
+        .flat_map(|d| &d.scores)
+        .filter(|s| s.partial_channels.is_none())
+        .filter_map(|s| Some((s.scheme.clone(), s.median?, s.q1?, s.q3?)))
         .collect();
     scores.sort_by(|a, b| a.1.total_cmp(&b.1));
     if !scores.is_empty() {
@@ -577,61 +559,51 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     body.push_str(&section("Which scheme to trust", &sec));
 
     // Ranks of the trials as given.
-    let ranks = &compare["ranks"];
-    if let Some(list) = ranks["deficient"].as_array()
-        && !list.is_empty()
-    {
+    let ranks = &compare.ranks;
+    if !ranks.deficient.is_empty() {
         let mut t = String::from(
             "<p class=\"note\">A block's rank counts its eigenvalues above k·ε·λ<sub>max</sub> (k channels observed). Riemannian schemes need full rank; the others, and the masked mean after a regulariser, take these windows.</p><table><tr><th>likely cause</th><th>trials</th></tr>",
         );
-        if let Some(by) = ranks["by_cause"].as_object() {
-            for (cause, n) in by {
-                t.push_str(&format!("<tr><td>{}</td><td>{n}</td></tr>", escape(cause)));
-            }
+        for (cause, n) in &ranks.by_cause {
+            t.push_str(&format!("<tr><td>{}</td><td>{n}</td></tr>", escape(cause)));
         }
         t.push_str(&format!(
             "<tr><td>full rank</td><td>{}</td></tr></table>",
-            ranks["full_rank"]
+            ranks.full_rank
         ));
         body.push_str(&section("Rank-deficient trials", &t));
     }
 
     // Dropout and coverage.
     let mut sec = String::new();
-    if let Some(ep) = epochs {
-        let ep_names = strings(&ep["channels"]);
-        if let Some(svg) = raster(ep, &ep_names) {
-            sec.push_str(&figure(&svg, "Letters repeat the colours: M missing samples, S saturated, Z no signal, A amplitude outlier, B broadband excess, I isolated from the other channels, X marked by the user."));
-        }
+    if let Some(ep) = epochs
+        && let Some(svg) = raster(ep, &ep.channels)
+    {
+        sec.push_str(&figure(&svg, "Letters repeat the colours: M missing samples, S saturated, Z no signal, A amplitude outlier, B broadband excess, I isolated from the other channels, X marked by the user."));
     }
-    if let Some(co) = matrix(&compare["coobservation"]) {
-        let marks: Vec<[usize; 2]> = compare["unconstrained_pairs"]
-            .as_array()
-            .into_iter()
-            .flatten()
-            .filter_map(|v| Some([v[0].as_u64()? as usize, v[1].as_u64()? as usize]))
+    {
+        let co: Vec<Vec<f64>> = compare
+            .coobservation
+            .iter()
+            .map(|r| r.iter().map(|&n| n as f64).collect())
             .collect();
+        let marks = &compare.unconstrained_pairs;
         let max = co.iter().flatten().copied().fold(0.0f64, f64::max);
         let cell = (640.0 / p as f64).clamp(4.0, 22.0);
         sec.push_str(&figure(
-            &heatmap(&co, &names, "Co-observation: trials observing both channels", "trials", max, false, &marks, cell),
+            &heatmap(&co, names, "Co-observation: trials observing both channels", "trials", max, false, marks, cell),
             "The diagonal is each channel's coverage. × marks pairs never observed together: the data do not pin their covariance, and airm-observed fills it by the maximum-determinant completion.",
         ));
     }
     body.push_str(&section("Dropout and coverage", &sec));
 
     // Means and differences.
-    let rows: Vec<&Value> = compare["schemes"]
-        .as_array()
-        .into_iter()
-        .flatten()
-        .filter(|s| s["status"] == "ok")
-        .collect();
+    let rows: Vec<&SchemeMean> = compare.schemes.iter().filter_map(|s| s.ok()).collect();
     // The covariance unit when the inputs named one (EDF header or --unit).
     let cov_unit = covariance_unit(compare, epochs).map_or("data units²".to_string(), escape);
     let means: Vec<(String, Vec<Vec<f64>>)> = rows
         .iter()
-        .filter_map(|s| Some((s["scheme"].as_str()?.to_string(), matrix(&s["mean"])?)))
+        .map(|s| (s.scheme.clone(), dense(&s.mean)))
         .collect();
     let mut sec = String::new();
     if !means.is_empty() {
@@ -645,7 +617,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
         for (name, m) in &means {
             sec.push_str(&heatmap(
                 m,
-                &names,
+                names,
                 &format!("Mean: {name}"),
                 &format!("covariance ({cov_unit})"),
                 scale,
@@ -683,7 +655,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
             for (name, m) in &diffs {
                 sec.push_str(&heatmap(
                     m,
-                    &names,
+                    names,
                     &format!("{name} − {b}"),
                     &format!("difference ({cov_unit})"),
                     dscale,
@@ -698,40 +670,46 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     body.push_str(&section("The means", &sec));
 
     // Convergence.
+    // Non-finite points (null in compare.json) are left out of the curves.
+    let finite = |pts: Vec<(f64, f64)>| -> Vec<(f64, f64)> {
+        pts.into_iter()
+            .filter(|(x, y)| x.is_finite() && y.is_finite())
+            .collect()
+    };
     let grad: Vec<(String, Vec<(f64, f64)>)> = rows
         .iter()
-        .filter_map(|s| {
-            let t = s["trace"].as_array()?;
-            if t.len() < 2 {
-                return None;
-            }
-            Some((
-                s["scheme"].as_str()?.to_string(),
-                t.iter()
-                    .filter_map(|r| Some((f(&r["iteration"])?, f(&r["gradient_norm"])?)))
-                    .collect(),
-            ))
+        .filter(|s| s.trace.len() >= 2)
+        .map(|s| {
+            (
+                s.scheme.clone(),
+                finite(
+                    s.trace
+                        .iter()
+                        .map(|r| (r.iteration as f64, r.gradient_norm))
+                        .collect(),
+                ),
+            )
         })
         .collect();
     let cost: Vec<(String, Vec<(f64, f64)>)> = rows
         .iter()
-        .filter_map(|s| {
-            let t = s["trace"].as_array()?;
-            let last = f(&t.last()?["cost"])?;
-            if t.len() < 2 {
-                return None;
-            }
-            Some((
-                s["scheme"].as_str()?.to_string(),
-                t.iter()
-                    .filter_map(|r| {
-                        Some((
-                            f(&r["iteration"])?,
-                            (f(&r["cost"])? - last).abs() / last.abs().max(1e-300),
-                        ))
-                    })
-                    .collect(),
-            ))
+        .filter(|s| s.trace.len() >= 2 && s.trace.last().is_some_and(|r| r.cost.is_finite()))
+        .map(|s| {
+            let last = s.trace.last().map_or(f64::NAN, |r| r.cost);
+            (
+                s.scheme.clone(),
+                finite(
+                    s.trace
+                        .iter()
+                        .map(|r| {
+                            (
+                                r.iteration as f64,
+                                (r.cost - last).abs() / last.abs().max(1e-300),
+                            )
+                        })
+                        .collect(),
+                ),
+            )
         })
         .collect();
     let mut sec = String::new();
@@ -752,29 +730,23 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
 
     // Contributions.
     let mut sec = String::new();
-    if let Some(cs) = compare["contributions"].as_array() {
-        let ch: Vec<String> = cs
-            .iter()
-            .map(|c| c["channel"].as_str().unwrap_or("?").to_string())
-            .collect();
-        let get = |k: &str| {
-            cs.iter()
-                .map(|c| f(&c[k]).unwrap_or(f64::NAN))
-                .collect::<Vec<f64>>()
+    if let Some(cs) = &compare.contributions {
+        let ch: Vec<String> = cs.iter().map(|c| c.channel.clone()).collect();
+        let get = |f: fn(&crate::diagnose::ChannelContribution) -> f64| {
+            cs.iter().map(f).collect::<Vec<f64>>()
         };
         let interval: Vec<Option<[f64; 2]>> = cs
             .iter()
             .map(|c| {
-                let v = f(&c["variance"])?;
-                let iv = c["variance_interval"].as_array()?;
-                Some([iv[0].as_f64()? / v, iv[1].as_f64()? / v])
+                let iv = c.variance_interval?;
+                Some([iv[0] / c.variance, iv[1] / c.variance])
             })
             .collect();
         let ones: Vec<f64> = cs.iter().map(|_| 1.0).collect();
         sec.push_str("<div class=\"grid\">");
         sec.push_str(&bars(
             &ch,
-            &get("weight_share"),
+            &get(|c| c.weight_share),
             None,
             "Weight share",
             "share of total trial weight (fraction)",
@@ -782,7 +754,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
         ));
         sec.push_str(&bars(
             &ch,
-            &get("cost_share"),
+            &get(|c| c.cost_share),
             None,
             "Cost share",
             "share of the masked cost (fraction)",
@@ -790,7 +762,7 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
         ));
         sec.push_str(&bars(
             &ch,
-            &get("leave_out_influence"),
+            &get(|c| c.leave_out_influence.unwrap_or(f64::NAN)),
             None,
             "Leave-one-out influence",
             "distance when left out (dimensionless)",
@@ -818,25 +790,26 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
     let mut t = String::from(
         "<table><tr><th>scheme</th><th>converged</th><th>iterations</th><th>seconds</th><th>condition number</th><th>dispersion</th><th>log-det gap</th><th>channels</th></tr>",
     );
-    for s in compare["schemes"].as_array().into_iter().flatten() {
-        if s["status"] == "ok" {
-            t.push_str(&format!(
+    for row in &compare.schemes {
+        match row {
+            crate::jobs::comparison::SchemeRow::Ok(s) => t.push_str(&format!(
                 "<tr><td>{}</td><td>{}</td><td>{}</td><td>{:.2}</td><td>{:.3e}</td><td>{:.4}</td><td>{:.4}</td><td>{}</td></tr>",
-                escape(s["scheme"].as_str().unwrap_or("?")),
-                s["converged"],
-                s["iterations"],
-                f(&s["seconds"]).unwrap_or(f64::NAN),
-                f(&s["condition_number"]).unwrap_or(f64::NAN),
-                f(&s["dispersion"]).unwrap_or(f64::NAN),
-                f(&s["log_det_gap"]).unwrap_or(f64::NAN),
-                s["estimated_channels"]
-            ));
-        } else {
-            t.push_str(&format!(
-                "<tr><td>{}</td><td colspan=\"7\">not applicable: {}</td></tr>",
-                escape(s["scheme"].as_str().unwrap_or("?")),
-                escape(s["reason"].as_str().unwrap_or(""))
-            ));
+                escape(&s.scheme),
+                s.converged,
+                s.iterations,
+                s.seconds,
+                s.condition_number,
+                s.dispersion,
+                s.log_det_gap,
+                s.estimated_channels
+            )),
+            crate::jobs::comparison::SchemeRow::NotApplicable { scheme, reason } => {
+                t.push_str(&format!(
+                    "<tr><td>{}</td><td colspan=\"7\">not applicable: {}</td></tr>",
+                    escape(scheme),
+                    escape(reason)
+                ))
+            }
         }
     }
     t.push_str("</table>");
@@ -849,20 +822,19 @@ pub fn render(compare: &Value, epochs: Option<&Value>) -> String {
         ),
     ));
     // Where the page came from (read from compare.json, drawn as given).
-    let prov = &compare["provenance"];
-    if prov.is_object() {
+    if let Some(prov) = &compare.provenance {
         let mut p = format!(
             "<p class=\"note\">Made by lacuna {} on {} with: <code>{}</code></p><ul class=\"note\">",
-            escape(prov["lacuna_version"].as_str().unwrap_or("?")),
-            escape(prov["created_utc"].as_str().unwrap_or("?")),
-            escape(&strings(&prov["command_line"]).join(" "))
+            escape(&prov.lacuna_version),
+            escape(&prov.created_utc),
+            escape(&prov.command_line.join(" "))
         );
-        for i in prov["inputs"].as_array().into_iter().flatten() {
+        for i in &prov.inputs {
             p.push_str(&format!(
                 "<li>{} — {} bytes, SHA-256 {}</li>",
-                escape(i["path"].as_str().unwrap_or("?")),
-                i["bytes"],
-                escape(i["sha256"].as_str().unwrap_or("?"))
+                escape(&i.path),
+                i.bytes,
+                escape(&i.sha256)
             ));
         }
         p.push_str("</ul>");

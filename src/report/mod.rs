@@ -6,10 +6,10 @@
 //!   drawn with our own small SVG writer (`svg`) and CIELAB colour maps (`colors`).
 
 pub mod colors;
-pub mod compare_check;
 pub mod epochs_check;
 pub mod glossary;
 pub mod html;
 pub mod json;
 pub mod provenance;
 pub mod svg;
+pub mod tables;

@@ -11,7 +11,7 @@ use sha2::{Digest, Sha256};
 use crate::error::{LacunaError, Result};
 
 /// One input file.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct InputFile {
     /// The path as given.
     pub path: String,
@@ -22,9 +22,9 @@ pub struct InputFile {
 }
 
 /// The provenance block of an output.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize)]
 pub struct Provenance {
-    pub lacuna_version: &'static str,
+    pub lacuna_version: String,
     /// The command line, one element per argument.
     pub command_line: Vec<String>,
     pub inputs: Vec<InputFile>,
@@ -61,7 +61,7 @@ pub fn sha256_file(path: &Path) -> Result<InputFile> {
 /// Provenance of this run for the given input files.
 pub fn provenance(inputs: &[&Path]) -> Result<Provenance> {
     Ok(Provenance {
-        lacuna_version: env!("CARGO_PKG_VERSION"),
+        lacuna_version: env!("CARGO_PKG_VERSION").into(),
         command_line: std::env::args().collect(),
         inputs: inputs
             .iter()

@@ -364,8 +364,8 @@ impl AirmObserved {
 }
 
 impl AveragingScheme for AirmObserved {
-    fn name(&self) -> &'static str {
-        "airm-observed"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::AirmObserved
     }
     fn corrects_scale(&self) -> bool {
         true
@@ -379,11 +379,10 @@ impl AveragingScheme for AirmObserved {
     fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let ident = identifiability(set);
         if let Some(&c) = ident.never_observed.first() {
-            return Err(LacunaError::Unsupported(format!(
-                "channel {} is observed in no trial ({} such channel(s)); its variance cannot be estimated. Remove it, or pass --drop-unobserved to leave it out of the mean",
-                set.channels()[c],
-                ident.never_observed.len()
-            )));
+            return Err(LacunaError::NeverObserved {
+                channel: set.channels()[c].clone(),
+                count: ident.never_observed.len(),
+            });
         }
         let problem = MaskedKarcherProblem::new(set);
         let obs = options.observer.clone();

@@ -59,8 +59,8 @@ fn zero_filled(t: &Trial, p: usize) -> Mat {
 }
 
 impl AveragingScheme for CompleteTrials {
-    fn name(&self) -> &'static str {
-        "complete-trials"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::CompleteTrials
     }
     fn summary(&self) -> &'static str {
         "Karcher mean of the trials that observed every channel; incomplete trials are dropped"
@@ -90,8 +90,8 @@ impl AveragingScheme for CompleteTrials {
 }
 
 impl AveragingScheme for AvailableCase {
-    fn name(&self) -> &'static str {
-        "available-case"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::AvailableCase
     }
     /// Accepts rank-deficient blocks: a Euclidean average of observed entries.
     fn accepts_rank_deficient(&self) -> bool {
@@ -107,10 +107,10 @@ impl AveragingScheme for AvailableCase {
         let counts = set.coobservation_counts();
         let p = set.n_channels();
         if let Some(c) = (0..p).find(|&c| counts[c][c] == 0) {
-            return Err(LacunaError::Unsupported(format!(
-                "channel {} is observed in no trial; pass --drop-unobserved",
-                set.channels()[c]
-            )));
+            return Err(LacunaError::NeverObserved {
+                channel: set.channels()[c].clone(),
+                count: 1,
+            });
         }
         let raw = pairwise_mean(set);
         let floor = 1e-6 * raw.trace() / p as f64;
@@ -159,8 +159,8 @@ pub fn pairwise_mean(set: &TrialSet) -> Mat {
 }
 
 impl AveragingScheme for DiagonalLoading {
-    fn name(&self) -> &'static str {
-        "diagonal-loading"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::DiagonalLoading
     }
     /// Accepts rank-deficient blocks: every block is loaded before averaging.
     fn accepts_rank_deficient(&self) -> bool {
@@ -172,13 +172,12 @@ impl AveragingScheme for DiagonalLoading {
     fn handles_missing(&self) -> bool {
         true
     }
+    fn check(&self, options: &SchemeOptions) -> Result<()> {
+        options.stop.check()?;
+        crate::error::float_in("loading", options.loading, super::LOADING_RANGE)
+    }
     fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let lambda = options.loading;
-        if !(lambda > 0.0) {
-            return Err(LacunaError::InvalidOption(format!(
-                "--loading must be positive, got {lambda}"
-            )));
-        }
         let p = set.n_channels();
         let mats = set
             .trials()
@@ -208,8 +207,8 @@ impl AveragingScheme for DiagonalLoading {
 }
 
 impl AveragingScheme for Shrinkage {
-    fn name(&self) -> &'static str {
-        "shrinkage"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::Shrinkage
     }
     /// Accepts rank-deficient blocks: every block is shrunk before averaging.
     fn accepts_rank_deficient(&self) -> bool {
@@ -221,13 +220,12 @@ impl AveragingScheme for Shrinkage {
     fn handles_missing(&self) -> bool {
         true
     }
+    fn check(&self, options: &SchemeOptions) -> Result<()> {
+        options.stop.check()?;
+        crate::error::float_in("shrinkage", options.shrinkage, super::SHRINKAGE_RANGE)
+    }
     fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let alpha = options.shrinkage;
-        if !(alpha > 0.0 && alpha <= 1.0) {
-            return Err(LacunaError::InvalidOption(format!(
-                "--shrinkage must be in (0, 1], got {alpha}"
-            )));
-        }
         let p = set.n_channels();
         let mut intensities = Vec::with_capacity(set.len());
         let mats = set

@@ -22,8 +22,8 @@ pub struct Harmonic;
 pub struct LogEuclidean;
 
 impl AveragingScheme for Arithmetic {
-    fn name(&self) -> &'static str {
-        "arithmetic"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::Arithmetic
     }
     /// Accepts rank-deficient blocks: a Euclidean average.
     fn accepts_rank_deficient(&self) -> bool {
@@ -49,8 +49,8 @@ impl AveragingScheme for Arithmetic {
 }
 
 impl AveragingScheme for Harmonic {
-    fn name(&self) -> &'static str {
-        "harmonic"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::Harmonic
     }
     fn summary(&self) -> &'static str {
         "inverse of the weighted average of inverses, complete trials"
@@ -70,8 +70,8 @@ impl AveragingScheme for Harmonic {
 }
 
 impl AveragingScheme for LogEuclidean {
-    fn name(&self) -> &'static str {
-        "log-euclidean"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::LogEuclidean
     }
     fn summary(&self) -> &'static str {
         "exponential of the weighted average of matrix logarithms, complete trials"

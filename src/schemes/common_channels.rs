@@ -15,8 +15,8 @@ use crate::trials::TrialSet;
 pub struct CommonChannels;
 
 impl AveragingScheme for CommonChannels {
-    fn name(&self) -> &'static str {
-        "common-channels"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::CommonChannels
     }
     fn summary(&self) -> &'static str {
         "Karcher mean on the channels observed in every trial; the others are not estimated"

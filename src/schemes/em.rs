@@ -13,7 +13,8 @@
 //! costs one Cholesky per observation pattern (trials sharing a pattern are
 //! summed first). Stops when the relative Frobenius change of Σ falls below
 //! max(tol, 1e-9) — EM converges linearly, so the bound is on the step, not
-//! a gradient — or after max(max_iter, 5000) steps.
+//! a gradient — or after `max_iter` steps (default 5 000 for this scheme:
+//! [`super::SchemeId::default_max_iter`]).
 
 use super::{AveragingScheme, Diagnostics, InitRule, MeanResult, SchemeOptions};
 use crate::error::{LacunaError, Result};
@@ -52,8 +53,8 @@ fn neg_log_likelihood(sigma: &Mat, patterns: &[Pattern]) -> Option<f64> {
 }
 
 impl AveragingScheme for GaussianEm {
-    fn name(&self) -> &'static str {
-        "gaussian-em"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::GaussianEm
     }
     /// Accepts rank-deficient blocks: the blocks enter only as sufficient statistics of a positive definite model.
     fn accepts_rank_deficient(&self) -> bool {
@@ -69,10 +70,10 @@ impl AveragingScheme for GaussianEm {
         let p = set.n_channels();
         let ident = crate::diagnose::identifiability(set);
         if let Some(&c) = ident.never_observed.first() {
-            return Err(LacunaError::Unsupported(format!(
-                "channel {} is observed in no trial; pass --drop-unobserved",
-                set.channels()[c]
-            )));
+            return Err(LacunaError::NeverObserved {
+                channel: set.channels()[c].clone(),
+                count: 1,
+            });
         }
         let w = set.normalized_weights();
         let patterns: Vec<Pattern> = set
@@ -98,7 +99,7 @@ impl AveragingScheme for GaussianEm {
             })
             .collect();
         let tol = options.stop.tol.max(1e-9);
-        let max_iter = options.stop.max_iter.max(5000);
+        let max_iter = options.stop.max_iter;
         let mut sigma = InitRule::AvailableCase.start(set);
         let mut trace = Vec::new();
         let mut reason = StopReason::MaxIterations;

@@ -77,8 +77,8 @@ fn starting_point(trials: &TrialSet) -> Result<(crate::spd::Mat, String)> {
 }
 
 impl AveragingScheme for Karcher {
-    fn name(&self) -> &'static str {
-        "airm"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::Karcher
     }
     fn corrects_scale(&self) -> bool {
         true

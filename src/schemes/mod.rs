@@ -14,6 +14,7 @@ mod alternatives;
 mod closed_form;
 mod common_channels;
 mod em;
+mod id;
 mod karcher;
 pub mod regularize;
 mod spherical_spline;
@@ -26,6 +27,7 @@ pub use alternatives::{AvailableCase, CompleteTrials, DiagonalLoading, Shrinkage
 pub use closed_form::{Arithmetic, Harmonic, LogEuclidean};
 pub use common_channels::CommonChannels;
 pub use em::GaussianEm;
+pub use id::SchemeId;
 pub use karcher::Karcher;
 pub use spherical_spline::{
     SphericalSpline, spline_g as spherical_spline_g, spline_interpolation_matrix,
@@ -36,6 +38,11 @@ use crate::error::Result;
 use crate::solve::{IterRecord, Solution, StopReason, StopRule};
 use crate::spd::Mat;
 use crate::trials::TrialSet;
+
+/// Accepted range of `diagonal-loading`'s λ (inclusive).
+pub const LOADING_RANGE: (f64, f64) = (1e-300, 1e6);
+/// Accepted range of `shrinkage`'s α (inclusive).
+pub const SHRINKAGE_RANGE: (f64, f64) = (1e-300, 1.0);
 
 /// Progress callback, called after every accepted iteration.
 pub type Observer = Arc<dyn Fn(&IterRecord) + Send + Sync>;
@@ -286,8 +293,17 @@ impl MeanResult {
 
 /// The one question every scheme answers.
 pub trait AveragingScheme: Sync + Send {
+    /// Which scheme this is.
+    fn id(&self) -> SchemeId;
     /// Name used on the command line and in reports.
-    fn name(&self) -> &'static str;
+    fn name(&self) -> &'static str {
+        self.id().name()
+    }
+    /// Checks the settings this scheme reads, before any work; a value out
+    /// of range is an error naming the setting, never silently changed.
+    fn check(&self, options: &SchemeOptions) -> Result<()> {
+        options.stop.check()
+    }
     /// One sentence for `--help` and reports.
     fn summary(&self) -> &'static str;
     /// Whether the scheme accepts trials with unobserved channels.
@@ -312,6 +328,7 @@ pub trait AveragingScheme: Sync + Send {
     /// trial, its rank and the regularisers that would serve), then runs the
     /// scheme. The regulariser is recorded in the notes.
     fn average(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
+        self.check(options)?;
         let regularised;
         let mut note = None;
         let set = match &options.regularize {
@@ -369,26 +386,12 @@ pub trait AveragingScheme: Sync + Send {
 
 /// Every scheme lacuna knows, in the order they are listed to users.
 pub fn all_schemes() -> Vec<Box<dyn AveragingScheme>> {
-    vec![
-        Box::new(AirmObserved),
-        Box::new(CompleteTrials),
-        Box::new(AvailableCase),
-        Box::new(DiagonalLoading),
-        Box::new(Shrinkage),
-        Box::new(CommonChannels),
-        Box::new(Subspace),
-        Box::new(GaussianEm),
-        Box::new(SphericalSpline),
-        Box::new(Karcher),
-        Box::new(LogEuclidean),
-        Box::new(Arithmetic),
-        Box::new(Harmonic),
-    ]
+    SchemeId::ALL.into_iter().map(SchemeId::scheme).collect()
 }
 
 /// Looks a scheme up by name.
 pub fn scheme_by_name(name: &str) -> Option<Box<dyn AveragingScheme>> {
-    all_schemes().into_iter().find(|s| s.name() == name)
+    SchemeId::from_name(name).map(SchemeId::scheme)
 }
 
 /// Divides every observed block by `e^{c(k_i, n)}` (the expected scale

@@ -58,7 +58,7 @@ impl Regularizer {
             },
             "oas" => Regularizer::Oas {
                 samples: samples.ok_or_else(|| {
-                    "'oas' needs the samples per window: add --samples T".to_string()
+                    "'oas' needs the samples per window (the setting 'samples')".to_string()
                 })?,
             },
             _ => {

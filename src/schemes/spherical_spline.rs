@@ -77,8 +77,8 @@ pub fn spline_interpolation_matrix(
 }
 
 impl AveragingScheme for SphericalSpline {
-    fn name(&self) -> &'static str {
-        "spherical-spline"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::SphericalSpline
     }
     fn summary(&self) -> &'static str {
         "interpolate missing channels by spherical splines (needs electrode positions), Karcher mean"
@@ -88,11 +88,13 @@ impl AveragingScheme for SphericalSpline {
     }
     fn compute(&self, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         let p = set.n_channels();
-        let positions = options.positions.as_ref().ok_or_else(|| {
-            LacunaError::Unsupported(
-                "spherical-spline needs electrode positions (--positions FILE.csv with channel,x,y,z)".into(),
-            )
-        })?;
+        let positions = options
+            .positions
+            .as_ref()
+            .ok_or_else(|| LacunaError::MissingSetting {
+                setting: "positions".into(),
+                needed_for: "spherical-spline (electrode positions, channel,x,y,z)".into(),
+            })?;
         let positions: Vec<[f64; 3]> = set
             .channels()
             .iter()

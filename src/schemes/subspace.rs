@@ -25,8 +25,8 @@ use crate::trials::TrialSet;
 pub struct Subspace;
 
 impl AveragingScheme for Subspace {
-    fn name(&self) -> &'static str {
-        "subspace"
+    fn id(&self) -> super::SchemeId {
+        super::SchemeId::Subspace
     }
     /// Accepts rank-deficient blocks: the rank is capped at the smallest trial rank, so every compressed block is full rank.
     fn accepts_rank_deficient(&self) -> bool {
@@ -51,9 +51,13 @@ impl AveragingScheme for Subspace {
         let r = match options.rank {
             Some(r) if r >= 1 && r <= fewest => r,
             Some(r) => {
-                return Err(LacunaError::InvalidOption(format!(
-                    "--rank {r}: must be between 1 and {fewest} (the fewest channels any trial observed, or the lowest trial rank)"
-                )));
+                return Err(LacunaError::OutOfRange {
+                    setting: "rank".into(),
+                    value: r.to_string(),
+                    allowed: format!(
+                        "between 1 and {fewest} (the fewest channels any trial observed, or the lowest trial rank)"
+                    ),
+                });
             }
             None => {
                 let mut acc = 0.0;

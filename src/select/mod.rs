@@ -18,10 +18,10 @@
 //! Everything is deterministic for a given seed, whatever the thread count.
 
 use rayon::prelude::*;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::error::Result;
-use crate::schemes::{AveragingScheme, MeanResult, SchemeOptions, all_schemes};
+use crate::schemes::{AveragingScheme, MeanResult, SchemeId, SchemeOptions, all_schemes};
 use crate::simulate::rng::Rng;
 use crate::spd::Mat;
 use crate::spd::distance::airm_distance;
@@ -31,6 +31,8 @@ use crate::trials::{Trial, TrialSet};
 pub struct Candidate {
     /// Name in tables (scheme name, with its parameter when there are variants).
     pub label: String,
+    /// Which scheme it runs.
+    pub id: SchemeId,
     pub scheme: Box<dyn AveragingScheme>,
     pub options: SchemeOptions,
 }
@@ -67,16 +69,24 @@ pub fn default_candidates(base: &SchemeOptions, only: &[String]) -> Vec<Candidat
         if !s.handles_missing() {
             continue;
         }
-        if s.name() == "diagonal-loading" {
+        let id = s.id();
+        // Each scheme stops at its own iteration cap (EM takes many cheap steps).
+        let stop = crate::solve::StopRule {
+            tol: base.stop.tol,
+            max_iter: id.default_max_iter(),
+        };
+        if id == SchemeId::DiagonalLoading {
             for &l in &LOADING_GRID {
                 let label = format!("diagonal-loading({l:e})");
                 if only.is_empty() || only.iter().any(|o| o == &label || o == s.name()) {
                     out.push(Candidate {
                         label,
-                        scheme: crate::scheme_by_name(s.name()).expect("listed scheme"),
+                        id,
+                        scheme: id.scheme(),
                         options: SchemeOptions {
                             loading: l,
                             observer: None,
+                            stop: stop.clone(),
                             ..base.clone()
                         },
                     });
@@ -87,9 +97,11 @@ pub fn default_candidates(base: &SchemeOptions, only: &[String]) -> Vec<Candidat
         if only.is_empty() || only.iter().any(|o| o == s.name()) {
             out.push(Candidate {
                 label: s.name().to_string(),
+                id,
                 scheme: s,
                 options: SchemeOptions {
                     observer: None,
+                    stop,
                     ..base.clone()
                 },
             });
@@ -122,7 +134,8 @@ pub fn regularized_candidates(base: &SchemeOptions) -> Vec<Candidate> {
     grid.into_iter()
         .map(|r| Candidate {
             label: format!("airm-observed+{}", r.label()),
-            scheme: Box::new(crate::schemes::AirmObserved),
+            id: SchemeId::AirmObserved,
+            scheme: SchemeId::AirmObserved.scheme(),
             options: SchemeOptions {
                 regularize: Some(r),
                 observer: None,
@@ -133,10 +146,13 @@ pub fn regularized_candidates(base: &SchemeOptions) -> Vec<Candidate> {
 }
 
 /// Median and interquartile range of a sample.
-#[derive(Debug, Clone, Copy, Serialize)]
+#[derive(Debug, Clone, Copy, Serialize, Deserialize)]
 pub struct Spread {
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub median: f64,
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub q1: f64,
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub q3: f64,
     pub n: usize,
 }
@@ -166,7 +182,7 @@ impl Spread {
 }
 
 /// One candidate's result in one protocol.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Score {
     pub candidate: String,
     /// None when the candidate could not run (see `failures`).
@@ -196,13 +212,14 @@ pub struct DropoutValidation {
 }
 
 /// What the mean is meant to estimate; it decides the protocols' references.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum Target {
     /// The Riemannian centre of the trials (minimum-distance decoding,
     /// re-centring): a common scale factor is harmless. References: the
     /// complete-data Karcher mean; held-out fit by squared affine-invariant
     /// distance.
+    #[default]
     Centre,
     /// The population covariance (spatial filters, whitening, source models,
     /// power compared across window lengths). References: the arithmetic mean
@@ -223,7 +240,7 @@ impl Target {
 
 /// How the held-out protocol scores a held-out trial's observed block `C`
 /// against the training mean's sub-block `M` (both `k×k`); lower is better.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum FitCriterion {
     /// `δ²(M, C)`, the squared affine-invariant distance (needs `C` full rank).
@@ -332,10 +349,6 @@ fn distance_on(a: &Mat, b: &Mat, channels: &[usize]) -> f64 {
     airm_distance(&pick(a), &pick(b))
 }
 
-fn block(m: &Mat, o: &[usize]) -> Mat {
-    Mat::from_fn(o.len(), o.len(), |a, b| m[(o[a], o[b])])
-}
-
 /// A trial's observed block and the mean's sub-block on the same channels
 /// (those the trial observed and the mean estimates), or None when they
 /// share no channel. Every comparison of a mean with a trial goes through it.
@@ -365,7 +378,10 @@ pub fn matching_blocks(
                 .expect("subset of the observed channels")
         })
         .collect();
-    Some((block(mean, &o), block(&trial.block, &pos)))
+    Some((
+        crate::spd::sub_block(mean, &o),
+        crate::spd::sub_block(&trial.block, &pos),
+    ))
 }
 
 /// Simulated dropout validation (see the module documentation).
@@ -429,7 +445,7 @@ pub fn simulated_dropout(
                         patterns[rng.below(patterns.len())].clone()
                     };
                     Trial {
-                        block: block(&t.block, &o),
+                        block: crate::spd::sub_block(&t.block, &o),
                         observed: o,
                     }
                 })
@@ -762,14 +778,14 @@ pub fn decoding(
 }
 
 /// The recommendation and its reasons, in plain words.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Recommendation {
     /// The recommended candidate (the best on the primary protocol), if any ran.
     pub scheme: Option<String>,
     /// What the recommendation aims at.
     pub target: Target,
     /// The protocol that ranked: "simulated-dropout" or "held-out-fit".
-    pub primary: &'static str,
+    pub primary: String,
     /// False when other candidates' interquartile ranges overlap its own.
     pub clear: bool,
     /// Candidates statistically tied with it (IQR overlap), itself first.
@@ -944,7 +960,7 @@ pub fn recommend(
             return Recommendation {
                 scheme: None,
                 target,
-                primary: "none",
+                primary: "none".into(),
                 clear: false,
                 tied: vec![],
                 reasons: vec!["no candidate completed every repeat or fold of a protocol".into()],
@@ -1103,7 +1119,7 @@ pub fn recommend(
     Recommendation {
         scheme: Some(best.candidate.clone()),
         target,
-        primary,
+        primary: primary.into(),
         clear,
         tied,
         reasons,

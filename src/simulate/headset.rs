@@ -117,9 +117,8 @@ pub fn simulate(params: &HeadsetParams) -> HeadsetStudy {
         .zip(&lost)
         .map(|(m, l)| {
             let o: Vec<usize> = (0..p).filter(|&c| !l[c]).collect();
-            let k = o.len();
             Trial {
-                block: Mat::from_fn(k, k, |a, b| m[(o[a], o[b])]),
+                block: crate::spd::sub_block(m, &o),
                 observed: o,
             }
         })

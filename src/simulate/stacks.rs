@@ -80,8 +80,7 @@ pub fn masked_set(full: &[Mat], observed: Vec<Vec<usize>>) -> TrialSet {
         .iter()
         .zip(observed)
         .map(|(m, o)| {
-            let k = o.len();
-            let block = Mat::from_fn(k, k, |a, b| m[(o[a], o[b])]);
+            let block = crate::spd::sub_block(m, &o);
             Trial { observed: o, block }
         })
         .collect();

@@ -67,16 +67,31 @@ impl Default for StopRule {
     }
 }
 
+impl StopRule {
+    /// Accepted ranges (inclusive) of the tolerance and the iteration cap.
+    pub const TOL: (f64, f64) = (1e-300, 0.1);
+    pub const MAX_ITER: (usize, usize) = (1, 1_000_000);
+
+    /// Both settings in range, or an error naming the one that is not.
+    pub fn check(&self) -> crate::Result<()> {
+        crate::error::float_in("tol", self.tol, Self::TOL)?;
+        crate::error::int_in("max_iter", self.max_iter, Self::MAX_ITER)
+    }
+}
+
 /// One line of the convergence trace.
-#[derive(Debug, Clone, serde::Serialize)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub struct IterRecord {
     /// Iteration number (0 = the starting point).
     pub iteration: usize,
     /// Cost at this iterate.
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub cost: f64,
     /// Whitened Riemannian gradient norm at this iterate.
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub gradient_norm: f64,
     /// Step length accepted to reach this iterate (0 for the start).
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub step: f64,
     /// Cost evaluations spent so far.
     pub evaluations: usize,
@@ -84,11 +99,12 @@ pub struct IterRecord {
     /// `D^{-1/2} X D^{-1/2}` (`D = diag X`): 1 for a diagonal iterate, towards
     /// 0 as it approaches the boundary of the cone. Unit-free; NaN when the
     /// solver does not track it.
+    #[serde(deserialize_with = "crate::nullable::f64")]
     pub min_correlation_eigenvalue: f64,
 }
 
 /// Why the solver stopped.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "kebab-case")]
 pub enum StopReason {
     /// The gradient norm met the tolerance.

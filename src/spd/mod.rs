@@ -35,6 +35,12 @@ pub fn symmetrize(a: &Mat) -> Mat {
     Mat::from_fn(n, n, |i, j| 0.5 * (a[(i, j)] + a[(j, i)]))
 }
 
+/// The block of `m` on rows and columns `o` (in that order): the one helper
+/// for taking a trial's observed block, or a mean's block on some channels.
+pub fn sub_block(m: &Mat, o: &[usize]) -> Mat {
+    Mat::from_fn(o.len(), o.len(), |a, b| m[(o[a], o[b])])
+}
+
 /// Natural logarithm of the determinant of an SPD matrix (via Cholesky).
 pub fn log_det(a: &Mat) -> Option<f64> {
     let l = cholesky(a)?;

@@ -13,7 +13,7 @@ use std::path::Path;
 
 use super::npy::{self, NpyData};
 use super::{Trial, TrialSet, default_channel_names};
-use crate::error::{LacunaError, Result, TrialProblem};
+use crate::error::{LacunaError, ProblemKind, Result, TrialProblem};
 use crate::spd::Mat;
 
 fn format_err(path: &Path, message: impl Into<String>) -> LacunaError {
@@ -408,6 +408,7 @@ pub fn load_trial_set(
 fn with_mask_hint(mut problems: Vec<TrialProblem>) -> Vec<TrialProblem> {
     if problems.iter().any(|p| p.message.contains("NaN")) {
         problems.push(TrialProblem {
+                kind: ProblemKind::Other,
             trial: None,
             channel: None,
             message: "without --mask, a channel counts as unobserved only when its variance (diagonal entry) is NaN".into(),
@@ -420,23 +421,7 @@ fn with_mask_hint(mut problems: Vec<TrialProblem>) -> Vec<TrialProblem> {
 pub fn encode_matrix(path: &Path, m: &Mat, channels: &[String]) -> Vec<u8> {
     let p = m.nrows();
     if is_csv(path) {
-        let mut s = csv_row(channels);
-        for i in 0..p {
-            // NaN (not estimated) is an empty cell.
-            let row: Vec<String> = (0..p)
-                .map(|j| {
-                    let v = m[(i, j)];
-                    if v.is_nan() {
-                        String::new()
-                    } else {
-                        format!("{v:.17e}")
-                    }
-                })
-                .collect();
-            s.push_str(&row.join(","));
-            s.push('\n');
-        }
-        s.into_bytes()
+        crate::report::tables::matrix(m, channels)
     } else {
         let data: Vec<f64> = (0..p * p).map(|k| m[(k / p, k % p)]).collect();
         npy::encode_f64(&[p, p], &data)
@@ -516,13 +501,7 @@ pub fn encode_mask(set: &TrialSet) -> Vec<u8> {
 /// Encodes a trial set's mask as CSV: a header of channel names, then one
 /// row of 0/1 per trial (1 = observed).
 pub fn encode_mask_csv(set: &TrialSet) -> Vec<u8> {
-    let mut s = csv_row(set.channels());
-    for row in set.mask().chunks(set.n_channels()) {
-        let cells: Vec<&str> = row.iter().map(|&b| if b { "1" } else { "0" }).collect();
-        s.push_str(&cells.join(","));
-        s.push('\n');
-    }
-    s.into_bytes()
+    crate::report::tables::mask(set.channels(), &set.mask())
 }
 
 /// Reads electrode positions (CSV with a header `channel,x,y,z`) and returns
@@ -681,21 +660,4 @@ pub fn require_regular(path: &Path) -> Result<std::fs::Metadata> {
         ));
     }
     Ok(meta)
-}
-
-/// One CSV record with its newline, every field quoted when it must be
-/// (commas, quotes, line breaks, surrounding spaces), by the csv crate: the
-/// one writer of names and labels into CSV outputs.
-pub fn csv_row<S: AsRef<str>>(fields: &[S]) -> String {
-    let mut w = csv::WriterBuilder::new()
-        .terminator(csv::Terminator::Any(b'\n'))
-        .quote_style(csv::QuoteStyle::Necessary)
-        .from_writer(Vec::new());
-    // Writing to memory cannot fail; an empty record is written as "".
-    if fields.is_empty() {
-        return "\n".into();
-    }
-    let _ = w.write_record(fields.iter().map(|f| f.as_ref().as_bytes()));
-    let bytes = w.into_inner().unwrap_or_default();
-    String::from_utf8(bytes).unwrap_or_default()
 }

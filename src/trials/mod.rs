@@ -16,7 +16,7 @@
 pub mod io;
 pub mod npy;
 
-use crate::error::{LacunaError, Result, TrialProblem};
+use crate::error::{LacunaError, ProblemKind, Result, TrialProblem};
 use crate::spd::Mat;
 use crate::spd::validate::{SpdDefect, check_spd};
 
@@ -100,6 +100,7 @@ impl TrialSet {
         let name = |c: usize| channels.get(c).cloned().unwrap_or_else(|| format!("#{c}"));
         if trials.is_empty() {
             problems.push(TrialProblem {
+                kind: ProblemKind::Other,
                 trial: None,
                 channel: None,
                 message: "the set holds no trials".into(),
@@ -110,12 +111,14 @@ impl TrialSet {
         for (c, n) in channels.iter().enumerate() {
             if n.trim().is_empty() {
                 problems.push(TrialProblem {
+                    kind: ProblemKind::Other,
                     trial: None,
                     channel: Some(format!("#{c}")),
                     message: "channel name is empty; give every channel a name".into(),
                 });
             } else if let Some(first) = seen.insert(n.as_str(), c) {
                 problems.push(TrialProblem {
+                    kind: ProblemKind::Other,
                     trial: None,
                     channel: Some(n.clone()),
                     message: format!(
@@ -128,6 +131,7 @@ impl TrialSet {
         for (i, t) in trials.iter_mut().enumerate() {
             if t.observed.is_empty() {
                 problems.push(TrialProblem {
+                    kind: ProblemKind::Other,
                     trial: Some(i),
                     channel: None,
                     message: "no channel is observed".into(),
@@ -136,6 +140,7 @@ impl TrialSet {
             }
             if t.observed.windows(2).any(|w| w[0] >= w[1]) || t.observed.iter().any(|&c| c >= p) {
                 problems.push(TrialProblem {
+                    kind: ProblemKind::Other,
                     trial: Some(i),
                     channel: None,
                     message: "observed channel list is not increasing or out of range".into(),
@@ -152,6 +157,7 @@ impl TrialSet {
             {
                 let (r, c) = (idx % k, idx / k);
                 problems.push(TrialProblem {
+                kind: ProblemKind::Other,
                     trial: Some(i),
                     channel: Some(name(t.observed[r])),
                     message: format!(
@@ -178,6 +184,11 @@ impl TrialSet {
                             ranks[i] = r;
                         }
                         Err(lo) => problems.push(TrialProblem {
+                            kind: if lo < 0.0 {
+                                ProblemKind::Indefinite
+                            } else {
+                                ProblemKind::Other
+                            },
                             trial: Some(i),
                             channel: Some(name(t.observed[row])),
                             message: if lo.is_nan() || lo >= 0.0 {
@@ -192,11 +203,13 @@ impl TrialSet {
                     }
                 }
                 Err(SpdDefect::NonFinite { row, col }) => problems.push(TrialProblem {
+                    kind: ProblemKind::NonFinite,
                     trial: Some(i),
                     channel: Some(name(t.observed[row])),
                     message: format!("NaN or infinite value inside the observed block (with channel {}); mark the channel as unobserved in the mask or fix the value", name(t.observed[col])),
                 }),
                 Err(SpdDefect::NotSymmetric { relative, row }) => problems.push(TrialProblem {
+                    kind: ProblemKind::NotSymmetric,
                     trial: Some(i),
                     channel: Some(name(t.observed[row])),
                     message: format!("matrix is not symmetric (relative asymmetry {relative:.2e} > 1e-10); largest mismatch in this channel's row"),
@@ -224,6 +237,7 @@ impl TrialSet {
             Some(w) => {
                 if w.len() != n {
                     problems.push(TrialProblem {
+                        kind: ProblemKind::Other,
                         trial: None,
                         channel: None,
                         message: format!("{} weights given for {n} trials", w.len()),
@@ -232,6 +246,7 @@ impl TrialSet {
                     for (i, &v) in w.iter().enumerate() {
                         if !v.is_finite() || v < 0.0 {
                             problems.push(TrialProblem {
+                                kind: ProblemKind::Other,
                                 trial: Some(i),
                                 channel: None,
                                 message: format!("weight {v} is negative or not finite"),
@@ -240,6 +255,7 @@ impl TrialSet {
                     }
                     if w.iter().all(|&v| v == 0.0) {
                         problems.push(TrialProblem {
+                            kind: ProblemKind::Other,
                             trial: None,
                             channel: None,
                             message: "all weights are zero".into(),
@@ -351,7 +367,7 @@ impl TrialSet {
                 .find(|&c| !self.observed(i, c))
                 .unwrap_or(0);
             return Err(LacunaError::Unsupported(format!(
-                "scheme '{scheme}' needs every channel in every trial, but trial {i} lacks channel {} ({} of {} trials are incomplete); use --scheme airm-observed, which averages the observed blocks only",
+                "scheme '{scheme}' needs every channel in every trial, but trial {i} lacks channel {} ({} of {} trials are incomplete); the scheme airm-observed averages the observed blocks only",
                 self.channels[missing],
                 (0..self.len()).filter(|&j| !self.is_complete(j)).count(),
                 self.len()
@@ -488,6 +504,7 @@ impl TrialSet {
             return Err(LacunaError::InvalidTrials {
                 source_name: source_name.to_string(),
                 problems: vec![TrialProblem {
+                    kind: ProblemKind::Other,
                     trial: None,
                     channel: None,
                     message: format!(
@@ -568,7 +585,7 @@ mod tests {
         assert!(msg.contains("trial 1, channel ch2"), "{msg}");
         assert!(msg.contains("trial 2: no channel"), "{msg}");
         assert!(msg.contains("weight -1"), "{msg}");
-        assert_eq!(err.exit_code(), 3);
+        assert!(matches!(err, LacunaError::InvalidTrials { .. }));
     }
 
     #[test]
