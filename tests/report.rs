@@ -362,3 +362,44 @@ fn every_json_field_is_in_the_schema() {
     assert_eq!(mean["report_version"], "1");
     check("mean", &mean, &[]);
 }
+
+// Common practice, no source: every exporter is a function of the typed
+// result alone. compare.json read back into `Comparison` (and epochs.json
+// into `ExtractionRecord`) re-creates every file the commands wrote, byte
+// for byte: the JSON itself, each CSV table, each mean, and the page.
+#[test]
+fn exporters_read_only_the_typed_result() {
+    use lacuna::jobs::{Comparison, ExtractionRecord};
+    use lacuna::report::tables;
+    let (html_path, html) = demo_report();
+    let dir = html_path.parent().unwrap();
+    let cmp = dir.join("cmp");
+    let json = std::fs::read(cmp.join("compare.json")).unwrap();
+    let c: Comparison = serde_json::from_slice(&json).unwrap();
+    assert_eq!(
+        lacuna::output::json_bytes(&c),
+        json,
+        "compare.json round trip"
+    );
+    let read = |f: &str| std::fs::read(cmp.join(f)).unwrap();
+    assert_eq!(tables::comparison(&c), read("comparison.csv"));
+    assert_eq!(tables::distances(&c), read("distances.csv"));
+    assert_eq!(tables::validation(&c).unwrap(), read("validation.csv"));
+    assert_eq!(
+        tables::contributions(c.contributions.as_ref().unwrap()),
+        read("contributions.csv")
+    );
+    let mut means = 0;
+    for m in c.schemes.iter().filter_map(|r| r.ok()) {
+        for ext in ["npy", "csv"] {
+            let path = cmp.join("means").join(format!("{}.{ext}", m.file_stem()));
+            let bytes = lacuna::trials::io::encode_matrix(&path, &m.mean_matrix(), &c.channels);
+            assert_eq!(bytes, std::fs::read(&path).unwrap(), "{}", path.display());
+            means += 1;
+        }
+    }
+    assert!(means >= 2 * 8, "{means}");
+    let epochs: ExtractionRecord =
+        serde_json::from_slice(&std::fs::read(dir.join("trials/epochs.json")).unwrap()).unwrap();
+    assert_eq!(&lacuna::report::html::render(&c, Some(&epochs)), html);
+}

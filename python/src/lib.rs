@@ -98,6 +98,13 @@ fn mean<'py>(
     Ok((array, report))
 }
 
+/// Covariances (N, p, p), observation mask (N, p) and the record as JSON.
+type Extracted<'py> = (
+    Bound<'py, PyArray3<f64>>,
+    Bound<'py, PyArray2<bool>>,
+    String,
+);
+
 /// extract(job_json) -> (covs, mask, record_json)
 ///
 /// Runs `lacuna::jobs::ExtractJob` (settings as JSON; missing keys take the
@@ -106,14 +113,7 @@ fn mean<'py>(
 /// channels, per-trial labels and sessions, every epoch, every masked cell
 /// with its reason, unit, warnings and notes.
 #[pyfunction]
-fn extract<'py>(
-    py: Python<'py>,
-    job_json: &str,
-) -> PyResult<(
-    Bound<'py, PyArray3<f64>>,
-    Bound<'py, PyArray2<bool>>,
-    String,
-)> {
+fn extract<'py>(py: Python<'py>, job_json: &str) -> PyResult<Extracted<'py>> {
     let job: ExtractJob = serde_json::from_str(job_json)
         .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
     let (covs, mask, shape, record) = py

@@ -5,6 +5,7 @@
 //! - `html`: the self-contained HTML report of `lacuna compare` / `lacuna report`,
 //!   drawn with our own small SVG writer (`svg`) and CIELAB colour maps (`colors`).
 
+pub mod charts;
 pub mod colors;
 pub mod epochs_check;
 pub mod glossary;
