@@ -55,6 +55,27 @@ fn trial_set(
     TrialSet::new(channels, trials, weights, "the stack")
 }
 
+/// The arrays as owned buffers, so the computation can run without the GIL.
+type Owned = (Vec<f64>, [usize; 3], Vec<bool>, Option<Vec<f64>>);
+
+fn owned(
+    stack: &PyReadonlyArray3<'_, f64>,
+    mask: &PyReadonlyArray2<'_, bool>,
+    weights: Option<&PyReadonlyArray1<'_, f64>>,
+) -> PyResult<Owned> {
+    let s = stack.shape();
+    let weights = match weights {
+        Some(w) => Some(w.as_slice()?.to_vec()),
+        None => None,
+    };
+    Ok((
+        stack.as_slice()?.to_vec(),
+        [s[0], s[1], s[2]],
+        mask.as_slice()?.to_vec(),
+        weights,
+    ))
+}
+
 /// mean(stack, mask, weights, channels, job_json) -> (mean, report_json)
 ///
 /// The masked (or other) mean of a stack; `job_json` holds the settings of
@@ -73,14 +94,7 @@ fn mean<'py>(
 ) -> PyResult<(Bound<'py, PyArray2<f64>>, String)> {
     let job: MeanJob = serde_json::from_str(job_json)
         .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
-    let shape = stack.shape();
-    let shape = [shape[0], shape[1], shape[2]];
-    let data = stack.as_slice()?.to_vec();
-    let observed = mask.as_slice()?.to_vec();
-    let weights = match weights {
-        Some(w) => Some(w.as_slice()?.to_vec()),
-        None => None,
-    };
+    let (data, shape, observed, weights) = owned(&stack, &mask, weights.as_ref())?;
     let (mean, report) = py
         .detach(move || -> lacuna::Result<(lacuna::Mat, String)> {
             let set = trial_set(&data, shape, &observed, weights, channels)?;
@@ -192,14 +206,7 @@ fn compare<'py>(
 ) -> PyResult<String> {
     let job: CompareJob = serde_json::from_str(job_json)
         .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
-    let shape = stack.shape();
-    let shape = [shape[0], shape[1], shape[2]];
-    let data = stack.as_slice()?.to_vec();
-    let observed = mask.as_slice()?.to_vec();
-    let weights = match weights {
-        Some(w) => Some(w.as_slice()?.to_vec()),
-        None => None,
-    };
+    let (data, shape, observed, weights) = owned(&stack, &mask, weights.as_ref())?;
     py.detach(move || -> lacuna::Result<String> {
         let mut set = trial_set(&data, shape, &observed, weights, channels)?;
         set.labels = labels;

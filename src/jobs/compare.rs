@@ -107,15 +107,7 @@ impl CompareJob {
             )?;
         }
         if let Some(pos) = &self.positions {
-            for (name, xyz) in pos {
-                if xyz.iter().any(|v| !v.is_finite()) {
-                    return Err(LacunaError::OutOfRange {
-                        setting: "positions".into(),
-                        value: format!("{name}: {xyz:?}"),
-                        allowed: "finite coordinates".into(),
-                    });
-                }
-            }
+            super::check_positions(pos)?;
         }
         // Every name must be a scheme (or one point of the loading grid): a
         // typo must not silently shrink the comparison to the names that matched.

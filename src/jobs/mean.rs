@@ -173,15 +173,7 @@ impl MeanJob {
             int_in("rank", r, ranges::RANK)?;
         }
         if let Some(pos) = &self.positions {
-            for (name, xyz) in pos {
-                if xyz.iter().any(|v| !v.is_finite()) {
-                    return Err(LacunaError::OutOfRange {
-                        setting: "positions".into(),
-                        value: format!("{name}: {xyz:?}"),
-                        allowed: "finite coordinates".into(),
-                    });
-                }
-            }
+            super::check_positions(pos)?;
         }
         Ok(SchemeOptions {
             stop: StopRule {

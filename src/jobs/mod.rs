@@ -17,3 +17,20 @@ pub use comparison::Comparison;
 pub use extraction_record::ExtractionRecord;
 
 pub use crate::error::{float_in, int_in};
+
+/// Electrode positions must be finite (an error names the first channel that is not).
+pub fn check_positions(
+    positions: &std::collections::BTreeMap<String, [f64; 3]>,
+) -> crate::Result<()> {
+    match positions
+        .iter()
+        .find(|(_, xyz)| xyz.iter().any(|v| !v.is_finite()))
+    {
+        Some((name, xyz)) => Err(crate::LacunaError::OutOfRange {
+            setting: "positions".into(),
+            value: format!("{name}: {xyz:?}"),
+            allowed: "finite coordinates".into(),
+        }),
+        None => Ok(()),
+    }
+}
