@@ -11,7 +11,7 @@ use lacuna::jobs::comparison::SchemeRow;
 use lacuna::jobs::{CompareJob, Comparison, ExtractionRecord};
 use lacuna::report::tables;
 use lacuna::select::Target;
-use lacuna::trials::io::{encode_matrix, load_trial_set, read_labels, read_positions};
+use lacuna::trials::io::{encode_matrix, load_trial_set, read_labels};
 use lacuna::{LacunaError, Result};
 
 const EXAMPLE: &str = "Example (after `lacuna extract … --out trials`):
@@ -57,8 +57,10 @@ pub struct CompareArgs {
     /// Trial labels (CSV with a `label` column; `session` optional) for the decoding check.
     #[arg(long, value_name = "LABELS.csv")]
     labels: Option<PathBuf>,
-    /// Electrode positions (CSV `channel,x,y,z`) for spherical-spline.
-    #[arg(long, value_name = "FILE.csv")]
+    /// Electrode positions for spherical-spline: `10-20` or `10-10`
+    /// (standard positions computed by lacuna, matched to the channel names),
+    /// or a CSV `channel,x,y,z` of your own.
+    #[arg(long, value_name = "10-10|FILE.csv")]
     positions: Option<PathBuf>,
     /// Samples per trial, when known (shrinkage then uses OAS intensities).
     #[arg(long, value_name = "T")]
@@ -131,11 +133,12 @@ fn stage_bars(quiet: bool) -> lacuna::jobs::compare::CompareProgress {
 
 pub fn run(mut a: CompareArgs) -> Result<i32> {
     {
+        let positions_file = super::positions_file(&a.positions).map(PathBuf::from);
         let mut inputs: Vec<(&str, &Path)> = vec![("--covs", &a.covs)];
         for (o, p) in [
             ("--mask", &a.mask),
             ("--labels", &a.labels),
-            ("--positions", &a.positions),
+            ("--positions", &positions_file),
             ("--epochs", &a.epochs),
         ] {
             if let Some(p) = p {
@@ -198,23 +201,18 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
         set.labels = Some(labels);
         set.sessions = sessions;
     }
-    if let Some(path) = &a.positions {
-        job.positions = Some(super::positions_by_name(
-            read_positions(path, set.channels())?,
-            set.channels(),
-        ));
+    if let Some(spec) = &a.positions {
+        job.positions = Some(super::load_positions(spec, set.channels())?);
     }
     let observed: Vec<Vec<usize>> = set.trials().iter().map(|t| t.observed.clone()).collect();
     let channels_in = set.channels().to_vec();
     let mut result = job.run(set, Some(stage_bars(a.quiet)))?;
     result.provenance = Some({
         let mut paths: Vec<&Path> = vec![&a.covs];
-        for p in [&a.mask, &a.labels, &a.positions, &a.epochs]
-            .into_iter()
-            .flatten()
-        {
+        for p in [&a.mask, &a.labels, &a.epochs].into_iter().flatten() {
             paths.push(p);
         }
+        paths.extend(super::positions_file(&a.positions));
         lacuna::report::provenance::provenance(&paths)?
     });
     // The raster must describe the trials as given.

@@ -95,8 +95,10 @@ pub struct MeanArgs {
     /// capped at the fewest channels any trial observed).
     #[arg(long)]
     rank: Option<usize>,
-    /// Electrode positions for --scheme spherical-spline: CSV `channel,x,y,z`.
-    #[arg(long, value_name = "FILE.csv")]
+    /// Electrode positions for --scheme spherical-spline: `10-20` or `10-10`
+    /// (standard positions computed by lacuna, matched to the channel names;
+    /// T3/T4/T5/T6 accepted), or a CSV `channel,x,y,z` of your own.
+    #[arg(long, value_name = "10-10|FILE.csv")]
     positions: Option<PathBuf>,
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
@@ -131,11 +133,12 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     // Settings are checked before any file is read.
     job.options(None)?;
     {
+        let positions_file = super::positions_file(&a.positions).map(PathBuf::from);
         let mut inputs: Vec<(&str, &std::path::Path)> = vec![("--covs", &a.covs)];
         for (o, p) in [
             ("--mask", &a.mask),
             ("--weights", &a.weights),
-            ("--positions", &a.positions),
+            ("--positions", &positions_file),
         ] {
             if let Some(p) = p {
                 inputs.push((o, p));
@@ -155,11 +158,8 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     }
     let set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
     let set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
-    if let Some(path) = &a.positions {
-        job.positions = Some(super::positions_by_name(
-            lacuna::trials::io::read_positions(path, set.channels())?,
-            set.channels(),
-        ));
+    if let Some(spec) = &a.positions {
+        job.positions = Some(super::load_positions(spec, set.channels())?);
     }
     let show_progress = !a.quiet && std::io::stderr().is_terminal();
     let observer: Option<lacuna::schemes::Observer> = if show_progress {
@@ -179,9 +179,10 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     let (set, result, summary) = (&run.set, &run.result, &run.summary);
     let mean_bytes = lacuna::trials::io::encode_matrix(&a.out, &result.published(), set.channels());
     let mut input_paths: Vec<&std::path::Path> = vec![&a.covs];
-    for p in [&a.mask, &a.weights, &a.positions].into_iter().flatten() {
+    for p in [&a.mask, &a.weights].into_iter().flatten() {
         input_paths.push(p);
     }
+    input_paths.extend(super::positions_file(&a.positions));
     let report = run.report(Some(lacuna::report::provenance::provenance(&input_paths)?));
     let json = report.to_json();
     // The mean and its report are staged together and renamed together: a

@@ -84,12 +84,28 @@ enum Command {
     Synth(synth::SynthArgs),
 }
 
-/// Electrode positions keyed by channel name.
-fn positions_by_name(
-    positions: Vec<[f64; 3]>,
+/// `--positions 10-20` or `10-10` (when no file of that name exists): the
+/// standard system, computed by lacuna; otherwise a CSV file.
+fn standard_system(spec: &std::path::Path) -> Option<lacuna::electrodes::System> {
+    lacuna::electrodes::System::from_name(spec.to_str()?).filter(|_| !spec.exists())
+}
+
+/// The `--positions` file, when it names one (an input to check and record).
+pub fn positions_file(spec: &Option<std::path::PathBuf>) -> Option<&std::path::Path> {
+    spec.as_deref().filter(|p| standard_system(p).is_none())
+}
+
+/// Electrode positions for `channels`, keyed by name: a standard system's,
+/// or read from the CSV file.
+pub fn load_positions(
+    spec: &std::path::Path,
     channels: &[String],
-) -> std::collections::BTreeMap<String, [f64; 3]> {
-    channels.iter().cloned().zip(positions).collect()
+) -> lacuna::Result<std::collections::BTreeMap<String, [f64; 3]>> {
+    let positions = match standard_system(spec) {
+        Some(system) => lacuna::electrodes::standard_positions(channels, system)?,
+        None => lacuna::trials::io::read_positions(spec, channels)?,
+    };
+    Ok(channels.iter().cloned().zip(positions).collect())
 }
 
 /// Runs the command line; returns the process exit code.

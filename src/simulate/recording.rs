@@ -125,7 +125,8 @@ pub struct SimulatedSession {
 /// The study: sessions, truth.
 pub struct SimulatedStudy {
     pub channels: Vec<String>,
-    /// Invented electrode positions on the unit sphere (x, y, z).
+    /// Electrode positions on the unit sphere (x, y, z): the standard 10-10
+    /// places of the channel names.
     pub positions: Vec<[f64; 3]>,
     pub sessions: Vec<SimulatedSession>,
     /// Faults per trial (all sessions in order) and channel.
@@ -237,16 +238,23 @@ pub fn simulate_recording(params: &RecordingParams) -> crate::Result<SimulatedSt
     let p = params.channels;
     let fs = params.rate as f64;
     let mut rng = Rng::new(params.seed);
-    // Electrodes on the upper hemisphere (a Fibonacci spiral).
-    let golden = std::f64::consts::PI * (3.0 - 5f64.sqrt());
-    let positions: Vec<[f64; 3]> = (0..p)
-        .map(|i| {
-            let z = 1.0 - (i as f64 + 0.5) / p as f64 * 0.9;
-            let r = (1.0 - z * z).sqrt();
-            let phi = i as f64 * golden;
-            [r * phi.cos(), r * phi.sin(), z]
-        })
-        .collect();
+    // Electrodes at their standard 10-10 places (src/electrodes.rs); caps
+    // larger than the demo headset's names spread over the upper hemisphere
+    // on a Fibonacci spiral.
+    let names = channel_names(p);
+    let positions: Vec<[f64; 3]> =
+        crate::electrodes::standard_positions(&names, crate::electrodes::System::TenTen)
+            .unwrap_or_else(|_| {
+                let golden = std::f64::consts::PI * (3.0 - 5f64.sqrt());
+                (0..p)
+                    .map(|i| {
+                        let z = 1.0 - (i as f64 + 0.5) / p as f64 * 0.9;
+                        let r = (1.0 - z * z).sqrt();
+                        let phi = i as f64 * golden;
+                        [r * phi.cos(), r * phi.sin(), z]
+                    })
+                    .collect()
+            });
     let random_pattern = |rng: &mut Rng, width: f64| -> Vec<f64> {
         let (x, y) = (rng.normal(), rng.normal());
         let z = rng.normal().abs() + 0.2;
