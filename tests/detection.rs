@@ -443,7 +443,7 @@ fn threshold_sweep() {
                     (
                         f,
                         DetectOptions {
-                            flat_relative: f,
+                            flat_ratio: f,
                             ..base.clone()
                         },
                     )

@@ -6,8 +6,8 @@ mod common;
 use common::fixture;
 use lacuna::schemes::AirmObserved;
 use lacuna::select::{
-    Candidate, FitCriterion, SelectOptions, Target, default_candidates, held_out_fit, recommend,
-    simulated_dropout,
+    Candidate, FitCriterion, LOADING_GRID, SelectOptions, Target, default_candidates, held_out_fit,
+    recommend, simulated_dropout,
 };
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
@@ -120,7 +120,7 @@ fn population_target_recommends_a_scheme_close_to_sigma() {
             samples: Some(48),
             ..SchemeOptions::default()
         };
-        let mut cands: Vec<Candidate> = default_candidates(&base, &[]);
+        let mut cands: Vec<Candidate> = default_candidates(&base, &[], &LOADING_GRID);
         cands.push(Candidate {
             label: "airm-observed+scale-corrected".into(),
             id: lacuna::schemes::SchemeId::AirmObserved,
@@ -162,7 +162,7 @@ fn population_target_recommends_a_scheme_close_to_sigma() {
             repeats: 10,
             ..SelectOptions::default()
         };
-        let cands_c = default_candidates(&base, &[]);
+        let cands_c = default_candidates(&base, &[], &LOADING_GRID);
         let dc = simulated_dropout(&set, &cands_c, &centre).unwrap();
         let rc = recommend(Some(&dc), None, None, Target::Centre, 16);
         assert_eq!(rc.scheme.as_deref(), Some("airm-observed"), "seed {seed}");

@@ -7,7 +7,8 @@ use lacuna::diagnose::{ContributionOptions, contributions};
 use lacuna::ingest::pipeline::{ExtractOptions, extract};
 use lacuna::schemes::AirmObserved;
 use lacuna::select::{
-    SelectOptions, Target, decoding, default_candidates, held_out_fit, recommend, simulated_dropout,
+    LOADING_GRID, SelectOptions, Target, decoding, default_candidates, held_out_fit, recommend,
+    simulated_dropout,
 };
 use lacuna::simulate::recording::{RecordingParams, simulate_recording};
 use lacuna::simulate::rng::Rng;
@@ -33,7 +34,7 @@ fn demo_trials() -> lacuna::TrialSet {
 #[test]
 fn demo_scenario_ranks_the_masked_mean_first() {
     let set = demo_trials();
-    let cands = default_candidates(&SchemeOptions::default(), &[]);
+    let cands = default_candidates(&SchemeOptions::default(), &[], &LOADING_GRID);
     let opts = SelectOptions::default();
     let d = simulated_dropout(&set, &cands, &opts).unwrap();
     let fit = held_out_fit(&set, &cands, &opts).unwrap();
@@ -77,7 +78,7 @@ fn heavy_dropout_of_one_channel_changes_the_answer() {
         .map(|i| (0..p).filter(|&c| c != 0 || i % 12 == 0).collect())
         .collect();
     let set = masked_set(&full, obs);
-    let cands = default_candidates(&SchemeOptions::default(), &[]);
+    let cands = default_candidates(&SchemeOptions::default(), &[], &LOADING_GRID);
     let d = simulated_dropout(&set, &cands, &SelectOptions::default()).unwrap();
     assert_eq!(d.left_out, vec!["ch0".to_string()]);
     let r = recommend(Some(&d), None, None, Target::Centre, p);

@@ -8,7 +8,7 @@ use std::time::Instant;
 
 use lacuna::diagnose::{ContributionOptions, contributions};
 use lacuna::select::{
-    SelectOptions, decoding, default_candidates, held_out_fit, simulated_dropout,
+    LOADING_GRID, SelectOptions, decoding, default_candidates, held_out_fit, simulated_dropout,
 };
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
@@ -38,7 +38,7 @@ pub fn run(n: usize, p: usize) {
     let one = lacuna::schemes::AirmObserved.average(&set, &base).unwrap();
     let reference = t.elapsed().as_secs_f64();
     let total = Instant::now();
-    let cands = default_candidates(&base, &[]);
+    let cands = default_candidates(&base, &[], &LOADING_GRID);
     let t = Instant::now();
     let _means: Vec<_> = cands.par_iter().map(|c| c.run(&set).ok()).collect();
     let schemes = t.elapsed().as_secs_f64();

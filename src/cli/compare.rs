@@ -16,7 +16,7 @@ use lacuna::{LacunaError, Result};
 
 const EXAMPLE: &str = "Example (after `lacuna extract … --out trials`):
   lacuna compare --covs trials/covs.npy --mask trials/mask.csv --labels trials/labels.csv \\
-                 --positions demo-data/recording/positions.csv --out comparison
+                 --positions 10-10 --out comparison
 
 Writes comparison/means/<scheme>.npy and .csv, comparison.csv, distances.csv,
 validation.csv, contributions.csv and compare.json.";
@@ -89,9 +89,22 @@ pub struct CompareArgs {
     /// Seed for every random choice (validation, folds, bootstrap).
     #[arg(long, default_value_t = 0)]
     seed: u64,
-    /// Stopping tolerance of the iterative schemes.
-    #[arg(long, default_value_t = 1e-8)]
+    /// Stopping tolerance of the iterative schemes (the same default as
+    /// `lacuna mean`; the selection protocols stop their re-solves at
+    /// max(tol, 1e-5), see docs/selection.md).
+    #[arg(long, default_value = "1e-10", value_name = "TOL")]
     tol: f64,
+    /// λ values of the diagonal-loading grid (load = λ·trace/p).
+    #[arg(
+        long,
+        value_delimiter = ',',
+        default_value = "1e-4,1e-3,1e-2,1e-1",
+        value_name = "L1,L2,…"
+    )]
+    loading_grid: Vec<f64>,
+    /// α of the shrinkage scheme, in (0, 1].
+    #[arg(long, default_value = "0.1", value_name = "ALPHA")]
+    shrinkage: f64,
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
     drop_unobserved: bool,
@@ -184,6 +197,8 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
         no_validation: a.no_validation,
         seed: a.seed,
         tol: a.tol,
+        loading_grid: a.loading_grid.clone(),
+        shrinkage: a.shrinkage,
         drop_unobserved: a.drop_unobserved,
     };
     // Every setting checked before any file is read.

@@ -13,7 +13,9 @@ use lacuna::trials::io::{encode_mask, encode_mask_csv, encode_stack_with_nan};
 #[command(after_help = "Examples:
   # EDF+/BDF+ recordings whose annotations mark the trials (one file per session):
   lacuna extract demo-data/recording/session-*.edf --offset 0.5 --length 2 --band 8-30 --out trials
-  # A CSV recording with an events CSV, fixed 2 s windows instead of events:
+  # A CSV recording cut at the events of an events CSV (columns onset, duration, label):
+  lacuna extract run.csv --rate 250 --events run-events.csv --offset 0.5 --length 2 --out trials
+  # The same recording in fixed 2 s windows every 1 s instead of events:
   lacuna extract run.csv --rate 250 --window 2 --step 1 --out trials
   # Ready epochs (N × p × T):
   lacuna extract --epochs epochs.npy --rate 250 --band 8-30 --out trials
@@ -35,7 +37,12 @@ pub struct ExtractArgs {
     #[arg(long, value_name = "HZ")]
     rate: Option<f64>,
     /// Epoch start relative to each event's onset, seconds (±86400).
-    #[arg(long, default_value_t = 0.0, allow_hyphen_values = true)]
+    #[arg(
+        long,
+        default_value_t = 0.0,
+        allow_hyphen_values = true,
+        value_name = "SECONDS"
+    )]
     offset: f64,
     /// Epoch length in seconds (with events; up to 86400). Default: each
     /// event's duration when all events share one, else required.

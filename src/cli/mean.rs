@@ -9,10 +9,27 @@ use lacuna::Result;
 use lacuna::jobs::MeanJob;
 use lacuna::trials::io::load_trial_set;
 
+/// The example and the scheme names shown by `--help`.
+fn example() -> String {
+    let names: Vec<&str> = lacuna::schemes::SchemeId::ALL
+        .iter()
+        .map(|id| id.name())
+        .collect();
+    format!(
+        "Example (after `lacuna extract … --out trials`):
+  lacuna mean --covs trials/covs.npy --mask trials/mask.csv --out mean.csv --report report.json
+  lacuna mean --covs trials/covs.npy --mask trials/mask.csv --scheme gaussian-em --out em.npy
+
+The mean pools every trial given (all labels); weights select or weigh trials.
+Schemes (`lacuna schemes` says what each assumes): {}",
+        names.join(", ")
+    )
+}
+
 #[derive(Args, Debug)]
 #[command(
-    after_help = "`--help` (not -h) also defines the figures the report gives.",
-    after_long_help = lacuna::report::glossary::help_text(lacuna::report::glossary::MEAN)
+    after_help = format!("{}\n\n`--help` (not -h) also defines the figures the report gives.", example()),
+    after_long_help = format!("{}\n\n{}", example(), lacuna::report::glossary::help_text(lacuna::report::glossary::MEAN))
 )]
 pub struct MeanArgs {
     /// Physical unit of the data the covariances came from (e.g. µV); the
@@ -45,7 +62,7 @@ pub struct MeanArgs {
     #[arg(long, value_name = "FILE")]
     weights: Option<PathBuf>,
     /// Stop when the relative Riemannian gradient norm is at or below this.
-    #[arg(long, default_value_t = 1e-10)]
+    #[arg(long, default_value = "1e-10", value_name = "TOL")]
     tol: f64,
     /// Give up after this many iterations (the mean is still written; exit 4).
     /// Default 500; gaussian-em 5000 (EM takes many cheap steps).
@@ -112,6 +129,18 @@ pub struct MeanArgs {
 }
 
 pub fn run(a: MeanArgs) -> Result<i32> {
+    // The format follows the extension: refuse one we would not honour.
+    let ext = a
+        .out
+        .extension()
+        .and_then(|e| e.to_str())
+        .map(str::to_ascii_lowercase);
+    if !matches!(ext.as_deref(), Some("npy" | "csv")) {
+        return Err(lacuna::LacunaError::InvalidOption(format!(
+            "--out {}: write the mean as .npy (float64 p×p) or .csv (a header of channel names); the extension chooses the format",
+            a.out.display()
+        )));
+    }
     let mut job = MeanJob {
         scheme: a.scheme.clone(),
         tol: a.tol,
@@ -196,16 +225,16 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         println!("{json}");
     }
     let d = &result.diagnostics;
-    if !a.quiet {
+    if !a.quiet && !a.json {
         let incomplete = (0..set.len()).filter(|&i| !set.is_complete(i)).count();
-        eprintln!(
+        println!(
             "lacuna mean: {} trials ({incomplete} incomplete), {} channels, scheme {}",
             set.len(),
             set.n_channels(),
             result.scheme
         );
         if let Some(line) = run.ranks.summary_line() {
-            eprintln!(
+            println!(
                 "  {line}{}",
                 match run.regularizer {
                     Some(r) => format!("; regularised first by {}", r.label()),
@@ -214,13 +243,13 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             );
         }
         if !run.dropped.is_empty() {
-            eprintln!(
+            println!(
                 "  dropped channels observed in no trial: {}",
                 run.dropped.join(", ")
             );
         }
         if d.iterative {
-            eprintln!(
+            println!(
                 "  {} after {} iterations: gradient norm {:.2e} (tolerance {:.0e}), cost {:.6e}",
                 match d.stop_reason {
                     _ if d.converged => "converged",
@@ -235,9 +264,9 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             );
         }
         for n in &d.notes {
-            eprintln!("  note: {n}");
+            println!("  note: {n}");
         }
-        eprintln!(
+        println!(
             "  condition number {:.3e}, log det {:.4}; wrote {}",
             summary.condition_number,
             summary.log_det_mean,

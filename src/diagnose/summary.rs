@@ -24,8 +24,10 @@ pub struct ChannelCoverage {
 /// Log-determinant comparison on one observation pattern.
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct PatternSwelling {
-    /// Observed channel indices of the pattern.
+    /// Observed channel indices of the pattern (0-based).
     pub observed: Vec<usize>,
+    /// The same channels by name.
+    pub channels: Vec<String>,
     /// Trials with this pattern.
     pub trials: usize,
     /// `log det` of the mean's sub-block on these channels.
@@ -82,6 +84,11 @@ pub fn summarize(set: &TrialSet, mean: &Mat) -> MeanSummary {
                 / ws;
             PatternSwelling {
                 observed: g.observed.clone(),
+                channels: g
+                    .observed
+                    .iter()
+                    .map(|&c| set.channels()[c].clone())
+                    .collect(),
                 trials: g.trials.len(),
                 log_det_mean_block: log_det(&sub).unwrap_or(f64::NAN),
                 mean_log_det_trials: mld,

@@ -8,7 +8,7 @@
 //!    channel's digital minimum or maximum (the amplifier saturated); only
 //!    for formats that carry digital limits (EDF/BDF). Common practice, no source.
 //! 3. `no-signal`: robust SD of the high-passed signal at or below one digital
-//!    step (or exactly 0 without digital limits), or below `flat_relative`
+//!    step (or exactly 0 without digital limits), or below `flat_ratio`
 //!    of the channel's own median robust SD over the session's epochs.
 //!    Common practice, no source.
 //! 4. `amplitude-outlier`: robust z-score of the channel's robust SD among
@@ -80,7 +80,11 @@ pub struct DetectOptions {
     /// Turn automatic detection off (only non-finite samples and user marks count).
     pub enabled: bool,
     pub rail_fraction: f64,
-    pub flat_relative: f64,
+    /// Flat threshold: a robust SD below this fraction of the session's
+    /// median is no signal (`--flat-ratio`; read as `flat_relative` from
+    /// epochs.json version 1).
+    #[serde(alias = "flat_relative")]
+    pub flat_ratio: f64,
     /// Robust z of the channel's robust SD (either sign) beyond which it is an amplitude outlier.
     pub amplitude_z: f64,
     /// Robust z of the channel's log amplitude above the split beyond which it is a broadband excess.
@@ -97,7 +101,7 @@ impl Default for DetectOptions {
         DetectOptions {
             enabled: true,
             rail_fraction: 0.05,
-            flat_relative: 0.1,
+            flat_ratio: 0.1,
             // Chosen from lacuna's threshold sweep (docs/ingest.md).
             amplitude_z: 6.0,
             broadband_z: 7.0,

@@ -652,7 +652,7 @@ fn decide_session(
             }
             let med = quantile_in_place(&mut v, 0.5);
             for (r, st) in reasons.iter_mut().zip(&measured.stats) {
-                if r[c].is_none() && st[c].robust_sd < opts.detect.flat_relative * med {
+                if r[c].is_none() && st[c].robust_sd < opts.detect.flat_ratio * med {
                     r[c] = Some(Reason::NoSignal);
                 }
             }

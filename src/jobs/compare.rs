@@ -60,6 +60,10 @@ pub struct CompareJob {
     pub seed: u64,
     /// Stopping tolerance of the iterative schemes.
     pub tol: f64,
+    /// λ values of the diagonal-loading grid.
+    pub loading_grid: Vec<f64>,
+    /// α of the shrinkage scheme.
+    pub shrinkage: f64,
     /// Leave out channels no trial observed instead of refusing.
     pub drop_unobserved: bool,
 }
@@ -79,7 +83,9 @@ impl Default for CompareJob {
             no_leave_out: false,
             no_validation: false,
             seed: 0,
-            tol: 1e-8,
+            tol: 1e-10,
+            loading_grid: crate::select::LOADING_GRID.to_vec(),
+            shrinkage: 0.1,
             drop_unobserved: false,
         }
     }
@@ -93,6 +99,24 @@ impl CompareJob {
     /// Every setting checked before any work; nothing is silently changed.
     pub fn validate(&self) -> Result<()> {
         float_in("tol", self.tol, crate::solve::StopRule::TOL)?;
+        float_in("shrinkage", self.shrinkage, crate::schemes::SHRINKAGE_RANGE)?;
+        if self.loading_grid.is_empty() || self.loading_grid.len() > 20 {
+            return Err(LacunaError::OutOfRange {
+                setting: "loading_grid".into(),
+                value: format!("{} values", self.loading_grid.len()),
+                allowed: "between 1 and 20 values".into(),
+            });
+        }
+        for (k, &l) in self.loading_grid.iter().enumerate() {
+            float_in("loading_grid", l, crate::schemes::LOADING_RANGE)?;
+            if self.loading_grid[..k].contains(&l) {
+                return Err(LacunaError::OutOfRange {
+                    setting: "loading_grid".into(),
+                    value: format!("{l} twice"),
+                    allowed: "distinct values".into(),
+                });
+            }
+        }
         int_in("folds", self.folds, ranges::FOLDS)?;
         int_in("repeats", self.repeats, ranges::REPEATS)?;
         int_in("bootstrap", self.bootstrap, ranges::BOOTSTRAP)?;
@@ -146,9 +170,10 @@ impl CompareJob {
             samples: self.samples,
             positions: self.positions.clone().map(Arc::new),
             seed: self.seed,
+            shrinkage: self.shrinkage,
             ..SchemeOptions::default()
         };
-        let mut candidates = default_candidates(&base, &self.schemes);
+        let mut candidates = default_candidates(&base, &self.schemes, &self.loading_grid);
         if self.target == Target::Population
             && !rank_deficient
             && (self.samples.is_some() || self.effective_samples.is_some())

@@ -85,7 +85,7 @@ impl Default for ExtractJob {
             amplitude_z: d.amplitude_z,
             broadband_z: d.broadband_z,
             min_correlation: d.min_correlation,
-            flat_ratio: d.flat_relative,
+            flat_ratio: d.flat_ratio,
             rail_fraction: d.rail_fraction,
             channels: Vec::new(),
             bad: Vec::new(),
@@ -238,7 +238,7 @@ impl ExtractJob {
             detect: DetectOptions {
                 enabled: !self.no_detect,
                 rail_fraction: self.rail_fraction,
-                flat_relative: self.flat_ratio,
+                flat_ratio: self.flat_ratio,
                 amplitude_z: self.amplitude_z,
                 broadband_z: self.broadband_z,
                 min_correlation: self.min_correlation,

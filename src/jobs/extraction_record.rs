@@ -15,7 +15,7 @@ use crate::report::provenance::Provenance;
 use crate::report::tables;
 
 /// Version of the epochs.json layout.
-pub const EPOCHS_VERSION: &str = "1";
+pub const EPOCHS_VERSION: &str = "2";
 
 /// Everything `lacuna extract` records about its epochs. Read back
 /// leniently (absent fields take their defaults), so a hand-made or

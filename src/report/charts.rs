@@ -30,6 +30,26 @@ pub(super) fn heatmap(
     marks: &[[usize; 2]],
     cell: f64,
 ) -> String {
+    heatmap_from(m, names, title, unit, (0.0, scale), diverge, marks, cell)
+}
+
+/// [`heatmap`] with a sequential scale running from `range.0` (the data's
+/// least value, so the colours use the whole map) to `range.1`; diverging
+/// maps ignore `range.0` and run symmetrically about zero.
+#[allow(clippy::too_many_arguments)]
+pub(super) fn heatmap_from(
+    m: &[Vec<f64>],
+    names: &[String],
+    title: &str,
+    unit: &str,
+    range: (f64, f64),
+    diverge: bool,
+    marks: &[[usize; 2]],
+    cell: f64,
+) -> String {
+    let (floor, scale) = if diverge { (0.0, range.1) } else { range };
+    // Sequential colours of v on [floor, scale].
+    let seq = |v: f64| sequential(v - floor, (scale - floor).max(f64::MIN_POSITIVE));
     let p = m.len();
     let label_w = 46.0;
     let (x0, y0) = (label_w + 12.0, 40.0);
@@ -63,11 +83,7 @@ pub(super) fn heatmap(
                 );
                 continue;
             }
-            let color = if diverge {
-                diverging(v, scale)
-            } else {
-                sequential(v, scale)
-            };
+            let color = if diverge { diverging(v, scale) } else { seq(v) };
             s.rect_titled(
                 x0 + j as f64 * cell,
                 y0 + i as f64 * cell,
@@ -100,13 +116,9 @@ pub(super) fn heatmap(
         let v = if diverge {
             (2.0 * t - 1.0) * scale
         } else {
-            t * scale
+            floor + t * (scale - floor)
         };
-        let color = if diverge {
-            diverging(v, scale)
-        } else {
-            sequential(v, scale)
-        };
+        let color = if diverge { diverging(v, scale) } else { seq(v) };
         s.rect(
             lx,
             ly + k as f64 * lh / steps as f64,
@@ -119,7 +131,7 @@ pub(super) fn heatmap(
     let (top, bottom) = if diverge {
         (scale, -scale)
     } else {
-        (scale, 0.0)
+        (scale, floor)
     };
     s.text(lx + 16.0, ly + 9.0, &fmt_tick(top), "start", "tick");
     s.text(lx + 16.0, ly + lh, &fmt_tick(bottom), "start", "tick");
@@ -288,9 +300,18 @@ pub(super) fn convergence(
         .fold(1.0f64, f64::max);
     let x = |i: f64| x0 + i / max_it * w_plot;
     let y = |v: f64| y0 + h_plot - (v.log10() - llo) / (lhi - llo) * h_plot;
+    // Room for the longest legend entry and for every row of the legend.
+    let legend_w = series
+        .iter()
+        .map(|(n, _)| n.chars().count() + 10)
+        .max()
+        .unwrap_or(0) as f64
+        * 6.4
+        + 50.0;
+    let legend_h = 12.0 + 15.0 * series.len() as f64;
     let mut s = Svg::new(
-        x0 + w_plot + 190.0,
-        y0 + h_plot + 46.0,
+        x0 + w_plot + legend_w.max(120.0),
+        (y0 + h_plot + 46.0).max(y0 + legend_h),
         title,
         &format!("{ylabel} against iteration, logarithmic vertical axis"),
     );
@@ -317,9 +338,10 @@ pub(super) fn convergence(
         "#0e3e52", "#b22d30", "#e08214", "#35978f", "#542788", "#878787", "#4393c3", "#7b3294",
         "#d6604d", "#1b7837",
     ];
+    // Ten colours, solid then dashed: twenty series before a style repeats.
     for (k, (name, pts)) in series.iter().enumerate() {
         let color = palette[k % palette.len()];
-        let dash = k >= palette.len() / 2;
+        let dash = (k / palette.len()) % 2 == 1;
         let p: Vec<(f64, f64)> = pts
             .iter()
             .filter(|p| p.1 > 0.0 && p.1.is_finite())
@@ -327,7 +349,12 @@ pub(super) fn convergence(
             .collect();
         s.polyline(&p, color, dash);
         let ly = y0 + 6.0 + k as f64 * 15.0;
-        s.line(x0 + w_plot + 14.0, ly, x0 + w_plot + 34.0, ly, color, 2.0);
+        // The swatch is drawn like the curve (dashed when it is).
+        s.polyline(
+            &[(x0 + w_plot + 14.0, ly), (x0 + w_plot + 34.0, ly)],
+            color,
+            dash,
+        );
         s.text(
             x0 + w_plot + 40.0,
             ly + 4.0,

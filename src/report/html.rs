@@ -8,7 +8,7 @@
 use crate::jobs::comparison::{Comparison, SchemeMean};
 use crate::jobs::extraction_record::ExtractionRecord;
 
-use super::charts::{bars, convergence, heatmap, ranking_chart, raster};
+use super::charts::{bars, convergence, heatmap, heatmap_from, ranking_chart, raster};
 use super::svg::escape;
 
 const CSS: &str = r#"
@@ -170,9 +170,12 @@ pub fn render(compare: &Comparison, epochs: Option<&ExtractionRecord>) -> String
             .collect();
         let marks = &compare.unconstrained_pairs;
         let max = co.iter().flatten().copied().fold(0.0f64, f64::max);
+        // The colours span the data's own range (e.g. 59–90 trials), not 0–max.
+        let min = co.iter().flatten().copied().fold(f64::INFINITY, f64::min);
+        let min = if min < max { min } else { 0.0 };
         let cell = (640.0 / p as f64).clamp(4.0, 22.0);
         sec.push_str(&figure(
-            &heatmap(&co, names, "Co-observation: trials observing both channels", "trials", max, false, marks, cell),
+            &heatmap_from(&co, names, "Co-observation: trials observing both channels", "trials", (min, max), false, marks, cell),
             "The diagonal is each channel's coverage. × marks pairs never observed together: the data do not pin their covariance, and airm-observed fills it by the maximum-determinant completion.",
         ));
     }

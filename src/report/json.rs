@@ -18,6 +18,7 @@ pub const REPORT_VERSION: &str = "1";
 pub struct MeanReport<'a> {
     pub report_version: &'static str,
     pub lacuna_version: &'static str,
+    pub caution: &'static str,
     pub scheme: &'a str,
     pub converged: bool,
     pub stop_reason: Option<StopReason>,
@@ -89,6 +90,7 @@ impl<'a> MeanReport<'a> {
         MeanReport {
             report_version: REPORT_VERSION,
             lacuna_version: env!("CARGO_PKG_VERSION"),
+            caution: crate::jobs::comparison::CAUTION,
             scheme: &result.scheme,
             converged: d.converged,
             stop_reason: d.stop_reason,

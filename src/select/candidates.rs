@@ -41,8 +41,12 @@ impl Candidate {
 pub const LOADING_GRID: [f64; 4] = [1e-4, 1e-3, 1e-2, 1e-1];
 
 /// Every scheme that accepts missing channels, diagonal loading once per λ
-/// of [`LOADING_GRID`]. `only` restricts to the given labels or scheme names.
-pub fn default_candidates(base: &SchemeOptions, only: &[String]) -> Vec<Candidate> {
+/// of `loading_grid` (by default [`LOADING_GRID`]). `only` restricts to the given labels or scheme names.
+pub fn default_candidates(
+    base: &SchemeOptions,
+    only: &[String],
+    loading_grid: &[f64],
+) -> Vec<Candidate> {
     let mut out = Vec::new();
     for s in all_schemes() {
         if !s.handles_missing() {
@@ -55,7 +59,7 @@ pub fn default_candidates(base: &SchemeOptions, only: &[String]) -> Vec<Candidat
             max_iter: id.default_max_iter(),
         };
         if id == SchemeId::DiagonalLoading {
-            for &l in &LOADING_GRID {
+            for &l in loading_grid {
                 let label = format!("diagonal-loading({l:e})");
                 if only.is_empty() || only.iter().any(|o| o == &label || o == s.name()) {
                     out.push(Candidate {

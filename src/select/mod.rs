@@ -373,6 +373,7 @@ pub(crate) mod testing {
                 SchemeId::AirmObserved.name().to_string(),
                 SchemeId::CompleteTrials.name().to_string(),
             ],
+            &super::LOADING_GRID,
         )
     }
 }
