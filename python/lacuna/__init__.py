@@ -304,7 +304,9 @@ def compare(
     leave_out: bool = True,
     validation: bool = True,
     seed: int = 0,
-    tol: float = 1e-8,
+    tol: float = 1e-10,
+    loading_grid: Sequence[float] = (1e-4, 1e-3, 1e-2, 1e-1),
+    shrinkage: float = 0.1,
     drop_unobserved: bool = False,
     unit: Optional[str] = None,
 ) -> Dict[str, Any]:
@@ -317,7 +319,9 @@ def compare(
     ``labels`` — minimum-distance decoding), the recommendation for
     ``target`` (``"centre"`` or ``"population"``) and the per-channel
     contributions to the masked mean. Same defaults and numbers as the
-    command line.
+    command line; ``positions`` maps channel names to (x, y, z) on the unit
+    sphere (spherical-spline), ``loading_grid`` holds the λ values of
+    diagonal-loading and ``shrinkage`` the α of the shrinkage scheme.
 
     Returns
     -------
@@ -358,14 +362,18 @@ def compare(
         "no_validation": not validation,
         "seed": int(seed),
         "tol": float(tol),
+        "loading_grid": [float(x) for x in loading_grid],
+        "shrinkage": float(shrinkage),
         "drop_unobserved": bool(drop_unobserved),
     }
     for key in ("samples", "repeats", "folds", "bootstrap", "seed"):
         if job[key] is not None and job[key] < 0:
             raise LacunaError(f"{key} must not be negative, got {job[key]}")
-    for key in ("tol", "effective_samples"):
+    for key in ("tol", "effective_samples", "shrinkage"):
         if job[key] is not None and not np.isfinite(job[key]):
             raise LacunaError(f"{key} must be a finite number, got {job[key]}")
+    if not all(np.isfinite(job["loading_grid"])):
+        raise LacunaError(f"loading_grid must hold finite numbers, got {job['loading_grid']}")
     names: Optional[List[str]] = None if channels is None else [str(c) for c in channels]
     if names is not None and len(names) != s.shape[1]:
         raise LacunaError(f"channels names {len(names)} channels, the stack has {s.shape[1]}")
