@@ -189,7 +189,7 @@ fn singular_blocks_are_ranked_and_indefinite_ones_refused() {
         &out,
         &["trial 1 has rank 2 of 3", "--regularize"],
     );
-    let (code, _, err) = lacuna(&[
+    let (code, said, err) = lacuna(&[
         "mean",
         "--covs",
         s(&covs),
@@ -199,7 +199,7 @@ fn singular_blocks_are_ranked_and_indefinite_ones_refused() {
         s(&out),
     ]);
     assert_eq!(code, 0, "{err}");
-    assert!(err.contains("1 of 4 trials are rank-deficient"), "{err}");
+    assert!(said.contains("1 of 4 trials are rank-deficient"), "{said}");
     // Trial 2: correlation 1.5 between channels 0 and 1 is indefinite.
     let mut bad = complete_stack(4, 3);
     let v = 1.5 * (bad[18] * bad[18 + 4]).sqrt();

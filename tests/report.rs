@@ -339,7 +339,7 @@ fn every_json_field_is_in_the_schema() {
     assert_eq!(compare["compare_version"], "1");
     check("compare", &compare, &["stage_seconds"]);
     let epochs = read(&dir.join("trials/epochs.json"));
-    assert_eq!(epochs["lacuna_epochs_version"], "1");
+    assert_eq!(epochs["lacuna_epochs_version"], "2");
     check("epochs", &epochs, &["summary.reasons"]);
     let report = dir.join("mean-report.json");
     let trials = dir.join("trials");
