@@ -79,7 +79,7 @@ pub struct MeanArgs {
     #[arg(long, default_value_t = 0)]
     seed: u64,
     /// λ for --scheme diagonal-loading: every trial gets λ·(trace/p) added to its diagonal.
-    #[arg(long, default_value_t = 1e-2)]
+    #[arg(long, default_value = "1e-2", value_name = "LAMBDA")]
     loading: f64,
     /// α for --scheme shrinkage: every trial becomes (1−α)·C + α·(trace/p)·I.
     #[arg(long, default_value_t = 0.1)]
