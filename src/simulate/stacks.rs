@@ -92,3 +92,42 @@ pub fn masked_set(full: &[Mat], observed: Vec<Vec<usize>>) -> TrialSet {
     )
     .expect("simulated trials are valid")
 }
+
+/// A hard masked set with rarely observed channels: `n` sample covariances
+/// of `t` samples each from one population of condition number `cond`,
+/// every trial scaled by its own gain (log-normal, σ = 0.3: electrode gain
+/// drift), every trial missing 1 to 6 channels, and each `(channel, k)` of
+/// `rare` observed in only `k` trials (spread evenly over the set).
+pub fn rare_channel_set(
+    n: usize,
+    p: usize,
+    t: usize,
+    cond: f64,
+    rare: &[(usize, usize)],
+    seed: u64,
+) -> TrialSet {
+    let mut rng = Rng::new(seed);
+    let sigma = random_spd(p, cond, &mut rng);
+    let full: Vec<Mat> = (0..n)
+        .map(|_| {
+            let gain = (0.3 * rng.normal()).exp();
+            sample_covariance(&sigma, t, &mut rng) * gain
+        })
+        .collect();
+    let mut observed = random_dropout(n, p, 1.0, 6, &mut rng);
+    for &(c, k) in rare {
+        let keep: Vec<usize> = (0..k.min(n)).map(|j| j * n / k.max(1)).collect();
+        for (i, obs) in observed.iter_mut().enumerate() {
+            let has = obs.contains(&c);
+            if keep.contains(&i) {
+                if !has {
+                    obs.push(c);
+                    obs.sort_unstable();
+                }
+            } else if has && obs.len() > 2 {
+                obs.retain(|&x| x != c);
+            }
+        }
+    }
+    masked_set(&full, observed)
+}
