@@ -93,6 +93,7 @@ def mean(
     effective_samples: Optional[float] = None,
     regularize: Optional[str] = None,
     drop_unobserved: bool = False,
+    precondition: bool = True,
     unit: Optional[str] = None,
 ) -> Tuple[np.ndarray, Dict[str, Any]]:
     """The mean of a stack of covariance matrices whose trials lost channels.
@@ -135,6 +136,10 @@ def mean(
         or ``"oas"`` (with ``samples``), for rank-deficient windows.
     drop_unobserved : bool
         Leave out channels no trial observed instead of raising.
+    precondition : bool
+        Precondition airm-observed's solver when channels are covered
+        unequally (default); False runs plain L-BFGS (same mean, usually
+        more iterations).
     unit : str, optional
         Physical unit of the data (e.g. ``"uV"``); the report gives
         covariances in its square.
@@ -177,6 +182,7 @@ def mean(
         "effective_samples": None if effective_samples is None else float(effective_samples),
         "regularize": regularize,
         "drop_unobserved": bool(drop_unobserved),
+        "no_precondition": not precondition,
         "unit": unit,
     }
     for key in ("max_iter", "starts", "samples", "rank"):

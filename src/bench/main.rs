@@ -206,7 +206,7 @@ fn kernels() {
 /// one (16 trials) and two (16 and 30 trials) rarely observed channels.
 fn rare() {
     use lacuna::simulate::stacks::rare_channel_set;
-    println!("| N | p | rare channels | iterations | converged | seconds |");
+    println!("| N | p | rare channels | iterations | stop | seconds |");
     println!("|---|---|---|---|---|---|");
     for (n, p) in [(600, 8), (600, 16), (2000, 32)] {
         for rare in [vec![], vec![(0, 16)], vec![(0, 16), (1, 30)]] {
@@ -224,7 +224,9 @@ fn rare() {
                     label.join(", ")
                 },
                 r.diagnostics.iterations,
-                r.diagnostics.converged,
+                r.diagnostics
+                    .stop_reason
+                    .map_or("-".into(), |s| format!("{s:?}")),
                 t.elapsed().as_secs_f64()
             );
         }

@@ -120,7 +120,11 @@ pub struct MeanArgs {
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
     drop_unobserved: bool,
-    /// Print nothing on stderr except errors.
+    /// Run airm-observed's solver without the preconditioner for unequally
+    /// covered channels (plain L-BFGS; the same mean, usually more iterations).
+    #[arg(long)]
+    no_precondition: bool,
+    /// Print no summary and no progress (errors and warnings still go to stderr).
     #[arg(long)]
     quiet: bool,
     /// Print the JSON report on stdout as well.
@@ -157,6 +161,7 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         effective_samples: a.effective_samples,
         regularize: a.regularize.clone(),
         drop_unobserved: a.drop_unobserved,
+        no_precondition: a.no_precondition,
         unit: a.unit.clone(),
     };
     // Settings are checked before any file is read.

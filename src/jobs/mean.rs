@@ -64,6 +64,9 @@ pub struct MeanJob {
     pub regularize: Option<String>,
     /// Leave out channels no trial observed instead of refusing.
     pub drop_unobserved: bool,
+    /// Plain L-BFGS for airm-observed, without the preconditioner that
+    /// serves unequally covered channels.
+    pub no_precondition: bool,
     /// Physical unit of the data (e.g. uV or µV), recorded in the report.
     pub unit: Option<String>,
 }
@@ -86,6 +89,7 @@ impl Default for MeanJob {
             effective_samples: None,
             regularize: None,
             drop_unobserved: false,
+            no_precondition: false,
             unit: None,
         }
     }
@@ -190,6 +194,7 @@ impl MeanJob {
             rank: self.rank,
             positions: self.positions.clone().map(Arc::new),
             warm_start: None,
+            precondition: !self.no_precondition,
             scale_correction: if self.correct_scale {
                 Some(degrees_of_freedom(self.samples, self.effective_samples)?)
             } else {

@@ -82,6 +82,10 @@ pub struct SchemeOptions {
     /// observed block by `e^{c(k_i, n)}` first, so that the Riemannian mean
     /// estimates the population covariance (src/spd/wishart.rs).
     pub scale_correction: Option<f64>,
+    /// Precondition the masked mean's solver when channels are covered
+    /// unequally (docs/masked-mean.md, "Preconditioning"). On by default;
+    /// off reproduces the plain L-BFGS run (for checks and benchmarks).
+    pub precondition: bool,
 }
 
 impl Default for SchemeOptions {
@@ -100,6 +104,7 @@ impl Default for SchemeOptions {
             warm_start: None,
             regularize: None,
             scale_correction: None,
+            precondition: true,
         }
     }
 }
@@ -119,6 +124,7 @@ impl std::fmt::Debug for SchemeOptions {
             .field("warm_start", &self.warm_start.is_some())
             .field("regularize", &self.regularize)
             .field("scale_correction", &self.scale_correction)
+            .field("precondition", &self.precondition)
             .finish()
     }
 }

@@ -32,8 +32,8 @@
 use std::collections::VecDeque;
 
 use super::{
-    Evaluation, IterRecord, Solution, SpdProblem, StopReason, StopRule, boundary, frob,
-    min_correlation_eigenvalue,
+    Evaluation, IterRecord, Preconditioner, Solution, SpdProblem, StopReason, StopRule, boundary,
+    frob, min_correlation_eigenvalue,
 };
 use crate::spd::kernels::sym_eigen;
 use crate::spd::{Mat, symmetrize};
@@ -41,6 +41,8 @@ use crate::spd::{Mat, symmetrize};
 const MEMORY: usize = 8;
 const ARMIJO_C1: f64 = 1e-4;
 const MAX_BACKTRACKS: usize = 40;
+/// Longest preconditioned step, in whitened (affine-invariant) units.
+const MAX_STEP: f64 = 1.0;
 /// Relative band within which cost differences are treated as rounding.
 const ROUNDING_BAND: f64 = 1e-12;
 /// Curvature factor of the approximate Wolfe test used inside that band.
@@ -67,6 +69,7 @@ pub fn minimize(
         w = sym_eigen(&symmetrize(&x)).apply(|v| v.max(0.0).sqrt());
     }
     let mut eval = problem.evaluate(&w)?;
+    let mut precond = problem.preconditioner(&w);
     let mut evaluations = 1;
     let mut memory: VecDeque<(Mat, Mat, f64)> = VecDeque::with_capacity(MEMORY);
     let mut trace: Vec<IterRecord> = Vec::new();
@@ -104,12 +107,22 @@ pub fn minimize(
         if iteration >= rule.max_iter {
             break StopReason::MaxIterations;
         }
-        let mut direction = two_loop(&eval, &memory);
+        let mut direction = two_loop(&eval, &memory, precond.as_ref());
         let mut slope = frob(&eval.grad, &direction);
         if !(slope < 0.0) {
             memory.clear();
-            direction = two_loop(&eval, &memory);
+            direction = two_loop(&eval, &memory, precond.as_ref());
             slope = frob(&eval.grad, &direction);
+        }
+        // A preconditioned step may not move any eigenvalue of the whitened
+        // iterate by more than a factor e^MAX_STEP: long steps along weakly
+        // pinned directions could otherwise leap into another basin.
+        if precond.is_some() {
+            let norm = frob(&direction, &direction).sqrt();
+            if norm > MAX_STEP {
+                direction *= MAX_STEP / norm;
+                slope *= MAX_STEP / norm;
+            }
         }
         // Backtracking along the geodesic X(t) = W exp(t d) Wᵀ.
         let dir_eig = sym_eigen(&direction);
@@ -120,7 +133,12 @@ pub fn minimize(
             let half = dir_eig.apply(|v| (0.5 * t * v).exp());
             let w_new = &w * &half;
             evaluations += 1;
-            if let Some(e) = problem.evaluate(&w_new) {
+            // A trial point at the numerical boundary of the cone is a step
+            // too long, not an iterate: long preconditioned steps along a
+            // weakly pinned direction must not end the run as a boundary.
+            let inside =
+                min_correlation_eigenvalue(&(&w_new * w_new.transpose())) > boundary::HARD_FLOOR;
+            if let Some(e) = problem.evaluate(&w_new).filter(|_| inside) {
                 // Slope at t: the transported direction is `d` itself.
                 let slope_t = frob(&e.grad, &direction);
                 let armijo = e.cost <= eval.cost + ARMIJO_C1 * t * slope + allowance;
@@ -156,6 +174,7 @@ pub fn minimize(
         };
         w = w_new;
         eval = e_new;
+        precond = problem.preconditioner(&w);
         step = t;
         iteration += 1;
     };
@@ -210,9 +229,15 @@ fn carry_over(
     (w_can, e)
 }
 
-/// L-BFGS two-loop recursion: returns `-H g`. With an empty memory the
-/// initial inverse Hessian is the problem's step hint (or 1) times identity.
-fn two_loop(eval: &Evaluation, memory: &VecDeque<(Mat, Mat, f64)>) -> Mat {
+/// L-BFGS two-loop recursion: returns `-H g`. The initial inverse Hessian
+/// is `γ P`: `P` the problem's preconditioner (identity without one), `γ`
+/// = ⟨s, y⟩ / ⟨y, P y⟩ from the newest pair, or the problem's step hint
+/// (or 1) while the memory is empty.
+fn two_loop(
+    eval: &Evaluation,
+    memory: &VecDeque<(Mat, Mat, f64)>,
+    precond: Option<&Preconditioner>,
+) -> Mat {
     let mut q = -eval.grad.clone();
     let mut alphas = Vec::with_capacity(memory.len());
     for (s, y, rho) in memory.iter().rev() {
@@ -220,11 +245,15 @@ fn two_loop(eval: &Evaluation, memory: &VecDeque<(Mat, Mat, f64)>) -> Mat {
         q -= y * a;
         alphas.push(a);
     }
+    let apply = |m: &Mat| match precond {
+        Some(p) => p.apply(m),
+        None => m.clone(),
+    };
     let gamma = match memory.back() {
-        Some((s, y, _)) => frob(s, y) / frob(y, y),
+        Some((s, y, _)) => frob(s, y) / frob(y, &apply(y)),
         None => eval.step_hint.unwrap_or(1.0),
     };
-    q *= gamma;
+    q = apply(&q) * gamma;
     for ((s, y, rho), a) in memory.iter().zip(alphas.iter().rev()) {
         let b = rho * frob(y, &q);
         q += s * (a - b);

@@ -47,6 +47,34 @@ pub trait SpdProblem: Sync {
     fn canonical(&self, _x: &Mat) -> Option<Mat> {
         None
     }
+    /// An approximation of the inverse Hessian at `X = W Wᵀ` for the
+    /// solver's initial L-BFGS matrix, or `None` for the identity.
+    fn preconditioner(&self, _w: &Mat) -> Option<Preconditioner> {
+        None
+    }
+}
+
+/// A symmetric positive definite operator on whitened tangent vectors,
+/// `P(g) = B ((Bᵀ g B) ∘ S) Bᵀ` with `B` orthogonal and `S` symmetric with
+/// positive entries: entrywise scaling in an orthonormal basis. Used as the
+/// L-BFGS initial inverse Hessian, it keeps every direction a descent
+/// direction (⟨g, P g⟩ = Σ S_ab (Bᵀ g B)_ab² > 0 for g ≠ 0).
+#[derive(Debug, Clone)]
+pub struct Preconditioner {
+    /// Orthogonal `p×p` basis.
+    pub basis: Mat,
+    /// Positive symmetric scale per entry in that basis.
+    pub scale: Mat,
+}
+
+impl Preconditioner {
+    /// Applies the operator.
+    pub fn apply(&self, g: &Mat) -> Mat {
+        let b = &self.basis;
+        let inner = b.transpose() * g * b;
+        let scaled = inner.component_mul(&self.scale);
+        crate::spd::symmetrize(&(b * scaled * b.transpose()))
+    }
 }
 
 /// When to stop, and how to report it.
