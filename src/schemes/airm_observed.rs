@@ -174,6 +174,11 @@ impl<'a> MaskedKarcherProblem<'a> {
         self
     }
 
+    /// Whether the solver gets a preconditioner on this set.
+    pub fn is_preconditioned(&self) -> bool {
+        self.coverage_order.is_some()
+    }
+
     /// The cost `F(X)` alone (used by tests and diagnostics).
     pub fn cost(&self, x: &Mat) -> Option<f64> {
         self.evaluate(&sym_eigen(&symmetrize(x)).apply(f64::sqrt))
@@ -506,6 +511,9 @@ impl AveragingScheme for AirmObserved {
         if !options.precondition {
             problem = problem.without_preconditioner();
         }
+        // Plain L-BFGS, built only when a preconditioned run must be checked.
+        let mut plain: Option<MaskedKarcherProblem> = None;
+        let mut fallbacks: Vec<String> = Vec::new();
         let obs = options.observer.clone();
         let mut runs: Vec<(String, Solution)> = Vec::new();
         for (k, (label, x0)) in self.starting_points(set, options).into_iter().enumerate() {
@@ -515,11 +523,28 @@ impl AveragingScheme for AirmObserved {
             } else {
                 None
             };
-            let sol = lbfgs::minimize(&problem, &x0, &options.stop, observer).ok_or_else(|| {
-                LacunaError::Numerical(format!(
-                    "starting point '{label}' makes an observed sub-block singular"
-                ))
-            })?;
+            let mut sol =
+                lbfgs::minimize(&problem, &x0, &options.stop, observer).ok_or_else(|| {
+                    LacunaError::Numerical(format!(
+                        "starting point '{label}' makes an observed sub-block singular"
+                    ))
+                })?;
+            // The preconditioner must never cost a result: a preconditioned
+            // run that did not converge is repeated with plain L-BFGS, and
+            // the plain run is kept when it converged or ended lower.
+            if !sol.converged() && problem.is_preconditioned() {
+                let plain = plain
+                    .get_or_insert_with(|| MaskedKarcherProblem::new(set).without_preconditioner());
+                if let Some(other) = lbfgs::minimize(plain, &x0, &options.stop, None)
+                    && (other.converged() || other.cost < sol.cost)
+                {
+                    fallbacks.push(format!(
+                        "start '{label}': the preconditioned solver stopped ({:?}, cost {:.6e}) and plain L-BFGS was used ({:?} after {} iterations, cost {:.6e})",
+                        sol.reason, sol.cost, other.reason, other.iterations, other.cost
+                    ));
+                    sol = other;
+                }
+            }
             runs.push((label, sol));
         }
         // Report the converged run with the lowest cost (any run if none
@@ -544,6 +569,7 @@ impl AveragingScheme for AirmObserved {
         diagnostics
             .notes
             .push(format!("started from the {} rule", runs[best].0));
+        diagnostics.notes.extend(fallbacks);
         diagnostics.unconstrained_pairs = ident.unconstrained_pairs.clone();
         diagnostics.completed_pairs = ident.unconstrained_pairs.len();
         if !ident.unconstrained_pairs.is_empty() {
