@@ -189,3 +189,38 @@ fn standard_positions_from_the_command_line() {
         "{err}"
     );
 }
+
+// Hostile values of compare's grid and α are usage errors naming the flag
+// (exit 2, nothing written). Common practice, no source.
+#[test]
+fn compare_grid_and_alpha_are_checked() {
+    let d = Dir::new("newcomer-grid");
+    let out = d.path("cmp");
+    for (flag, value) in [
+        ("--loading-grid", "NaN"),
+        ("--loading-grid", "inf"),
+        ("--loading-grid", "-1e-3"),
+        ("--loading-grid", "1e7"),
+        ("--loading-grid", "1e-2,1e-2"),
+        ("--loading-grid", ""),
+        ("--shrinkage", "0"),
+        ("--shrinkage", "1.5"),
+        ("--shrinkage", "NaN"),
+    ] {
+        let (code, _, err) = lacuna(&[
+            "compare",
+            "--covs",
+            &demo("covs.npy"),
+            "--mask",
+            &demo("mask.csv"),
+            flag,
+            value,
+            "--out",
+            s(&out),
+            "--quiet",
+        ]);
+        assert_eq!(code, 2, "{flag} {value}: {err}");
+        assert!(err.contains(flag), "{flag} {value}: {err}");
+        assert!(!out.exists());
+    }
+}

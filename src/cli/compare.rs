@@ -99,11 +99,17 @@ pub struct CompareArgs {
         long,
         value_delimiter = ',',
         default_value = "1e-4,1e-3,1e-2,1e-1",
-        value_name = "L1,L2,…"
+        value_name = "L1,L2,…",
+        allow_hyphen_values = true
     )]
     loading_grid: Vec<f64>,
     /// α of the shrinkage scheme, in (0, 1].
-    #[arg(long, default_value = "0.1", value_name = "ALPHA")]
+    #[arg(
+        long,
+        default_value = "0.1",
+        value_name = "ALPHA",
+        allow_hyphen_values = true
+    )]
     shrinkage: f64,
     /// Leave out channels that no trial observed instead of refusing.
     #[arg(long)]
