@@ -133,11 +133,12 @@ pub fn minimize(
             let half = dir_eig.apply(|v| (0.5 * t * v).exp());
             let w_new = &w * &half;
             evaluations += 1;
-            // A trial point at the numerical boundary of the cone is a step
-            // too long, not an iterate: long preconditioned steps along a
-            // weakly pinned direction must not end the run as a boundary.
-            let inside =
-                min_correlation_eigenvalue(&(&w_new * w_new.transpose())) > boundary::HARD_FLOOR;
+            // With a preconditioner, a trial point at the numerical boundary
+            // of the cone is a step too long, not an iterate: long steps
+            // along a weakly pinned direction must not end the run as a
+            // boundary. (Plain runs keep their boundary detection as it was.)
+            let inside = precond.is_none()
+                || min_correlation_eigenvalue(&(&w_new * w_new.transpose())) > boundary::HARD_FLOOR;
             if let Some(e) = problem.evaluate(&w_new).filter(|_| inside) {
                 // Slope at t: the transported direction is `d` itself.
                 let slope_t = frob(&e.grad, &direction);
