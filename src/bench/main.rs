@@ -26,6 +26,7 @@ struct Args {
     sizes: Vec<(usize, usize)>,
     reference: Option<String>,
     threads: Vec<usize>,
+    workers: Vec<usize>,
     file: Option<PathBuf>,
 }
 
@@ -35,6 +36,7 @@ fn parse() -> Args {
         sizes: vec![],
         reference: None,
         threads: vec![1, 2],
+        workers: vec![1, 2],
         file: None,
     };
     let argv: Vec<String> = std::env::args().skip(1).collect();
@@ -58,19 +60,26 @@ fn parse() -> Args {
                 a.threads = argv[i + 1].split(',').map(|t| t.parse().unwrap()).collect();
                 i += 1;
             }
+            "--workers" => {
+                a.workers = argv[i + 1].split(',').map(|t| t.parse().unwrap()).collect();
+                i += 1;
+            }
             "--file" => {
                 a.file = Some(PathBuf::from(&argv[i + 1]));
                 i += 1;
             }
             "--help" | "-h" => {
                 println!(
-                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|rare] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--file REC.bdf]\n\n\
+                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|rare] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--workers 1,2] [--file REC.bdf]\n\n\
                      karcher: full-data Karcher mean, default sizes 100x{{8,32,64,128}} and 10000x{{8,32,64,128}}\n\
                      masked:  airm-observed with 20% of trials missing 1-8 channels, default 10000x64\n\
                      compare: the whole compare pipeline on --size NxP (default 2000x32), per stage\n\
                      ingest:  a simulated 1-hour, 64-channel, 512 Hz BDF (generated once into --file, default in the temp folder)\n\
                               read, then 2 s epochs with 8-30 Hz band-pass, detection and OAS; throughput and peak memory\n\
+                     hard:    short windows (T = p + 8), condition 1e5, gain drift, every trial missing 1-6 channels; default 2000x{{32,64}}\n\
+                     rare:    masked sets with channels observed in few trials, plain and preconditioned solver\n\
                      --reference PYTHON runs tests/reference/bench_reference.py with that interpreter on the same data\n\
+                     --workers K,.. runs the reference once per process-pool size (default 1,2: one process, then both cores)\n\
                      (needs numpy/scipy: pip install -r tests/reference/requirements.txt)"
                 );
                 std::process::exit(0);
@@ -82,6 +91,8 @@ fn parse() -> Args {
     if a.sizes.is_empty() {
         a.sizes = if a.mode == "masked" {
             vec![(10_000, 64)]
+        } else if a.mode == "hard" {
+            vec![(2000, 32), (2000, 64)]
         } else if a.mode == "compare" {
             vec![(2000, 32)]
         } else {
@@ -204,30 +215,113 @@ fn kernels() {
 /// Iterations of the masked mean to 1e-10 on hard sets (T = p + 8 samples,
 /// condition 1e5, gain drift, every trial missing 1–6 channels) with no,
 /// one (16 trials) and two (16 and 30 trials) rarely observed channels.
-fn rare() {
+/// What the numpy reference reported.
+struct ReferenceRun {
+    method: String,
+    iterations: u64,
+    seconds: f64,
+    gradient_norm: f64,
+    converged: bool,
+}
+
+/// Runs tests/reference/bench_reference.py on `set` with a pool of
+/// `workers` processes, stopped after `max_seconds` if given.
+fn run_reference(
+    py: &str,
+    set: &TrialSet,
+    masked: bool,
+    workers: usize,
+    max_seconds: Option<f64>,
+) -> Option<ReferenceRun> {
+    let dir = std::env::temp_dir().join(format!("lacuna-bench-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).unwrap();
+    std::fs::write(dir.join("covs.npy"), encode_stack_with_nan(set)).unwrap();
+    std::fs::write(dir.join("mask.npy"), encode_mask(set)).unwrap();
+    let script = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/bench_reference.py"
+    );
+    let mut cmd = Command::new(py);
+    cmd.arg(script)
+        .arg(&dir)
+        .arg(if masked { "masked" } else { "full" })
+        .args(["--workers", &workers.to_string()]);
+    if let Some(s) = max_seconds {
+        cmd.args(["--max-seconds", &format!("{s:.3}")]);
+    }
+    let out = cmd.output().expect("run the reference");
+    let _ = std::fs::remove_dir_all(&dir);
+    if !out.status.success() {
+        eprintln!("reference failed: {}", String::from_utf8_lossy(&out.stderr));
+        return None;
+    }
+    let text = String::from_utf8_lossy(&out.stdout);
+    let v: serde_json::Value = text.lines().find_map(|l| serde_json::from_str(l).ok())?;
+    Some(ReferenceRun {
+        method: v["method"].as_str().unwrap_or("?").to_string(),
+        iterations: v["iterations"].as_u64().unwrap_or(0),
+        seconds: v["seconds"].as_f64().unwrap_or(f64::NAN),
+        gradient_norm: v["gradient_norm"].as_f64().unwrap_or(f64::NAN),
+        converged: v["converged"].as_bool().unwrap_or(false),
+    })
+}
+
+/// Rare-channel sets: plain L-BFGS against the preconditioned solver, and
+/// the numpy reference (2 processes) given 20× the preconditioned time.
+fn rare(args: &Args) {
     use lacuna::simulate::stacks::rare_channel_set;
-    println!("| N | p | rare channels | iterations | stop | seconds |");
-    println!("|---|---|---|---|---|---|");
+    println!(
+        "| N | p | rare channels | plain: iterations | stop | s | preconditioned: iterations | stop | s | reference after 20× that time |"
+    );
+    println!("|---|---|---|---|---|---|---|---|---|---|");
+    let workers = args.workers.last().copied().unwrap_or(1);
     for (n, p) in [(600, 8), (600, 16), (2000, 32)] {
         for rare in [vec![], vec![(0, 16)], vec![(0, 16), (1, 30)]] {
             let set = rare_channel_set(n, p, p + 8, 1e5, &rare, 1);
-            let t = Instant::now();
-            let r = AirmObserved
-                .average(&set, &SchemeOptions::default())
-                .unwrap();
+            let mut cells = Vec::new();
+            let mut last = f64::NAN;
+            for precondition in [false, true] {
+                let options = SchemeOptions {
+                    precondition,
+                    ..SchemeOptions::default()
+                };
+                let t = Instant::now();
+                let r = AirmObserved.average(&set, &options).unwrap();
+                last = t.elapsed().as_secs_f64();
+                cells.push(format!(
+                    "{} | {} | {last:.2}",
+                    r.diagnostics.iterations,
+                    r.diagnostics
+                        .stop_reason
+                        .map_or("-".into(), |s| format!("{s:?}"))
+                ));
+            }
+            let reference = match &args.reference {
+                Some(py) => match run_reference(py, &set, true, workers, Some(20.0 * last)) {
+                    Some(r) if r.converged => format!(
+                        "converged: {} iterations, {:.2} s ({:.1}× the preconditioned time)",
+                        r.iterations,
+                        r.seconds,
+                        r.seconds / last
+                    ),
+                    Some(r) => format!(
+                        "not converged: {} iterations, gradient norm {:.1e} after {:.2} s",
+                        r.iterations, r.gradient_norm, r.seconds
+                    ),
+                    None => "failed".into(),
+                },
+                None => "-".into(),
+            };
             let label: Vec<String> = rare.iter().map(|(c, k)| format!("ch{c} in {k}")).collect();
             println!(
-                "| {n} | {p} | {} | {} | {} | {:.2} |",
+                "| {n} | {p} | {} | {} | {} | {reference} |",
                 if label.is_empty() {
                     "none".into()
                 } else {
                     label.join(", ")
                 },
-                r.diagnostics.iterations,
-                r.diagnostics
-                    .stop_reason
-                    .map_or("-".into(), |s| format!("{s:?}")),
-                t.elapsed().as_secs_f64()
+                cells[0],
+                cells[1]
             );
         }
     }
@@ -260,16 +354,21 @@ fn main() {
         return;
     }
     if args.mode == "rare" {
-        rare();
+        rare(&args);
         return;
     }
-    let masked = args.mode == "masked";
+    let hard = args.mode == "hard";
+    let masked = args.mode == "masked" || hard;
     println!(
         "| N | p | threads | iterations | evaluations | time to tol (s) | per evaluation (ms) | floor (ms) | ratio to floor | gradient norm |"
     );
     println!("|---|---|---|---|---|---|---|---|---|---|");
     for &(n, p) in &args.sizes {
-        let set = make_set(n, p, masked, 7);
+        let set = if hard {
+            lacuna::simulate::stacks::rare_channel_set(n, p, p + 8, 1e5, &[], 7)
+        } else {
+            make_set(n, p, masked, 7)
+        };
         let mut per_thread = Vec::new();
         for &threads in &args.threads {
             let pool = rayon::ThreadPoolBuilder::new()
@@ -309,39 +408,21 @@ fn main() {
             );
         }
         if let Some(py) = &args.reference {
-            let dir = std::env::temp_dir().join(format!("lacuna-bench-{}", std::process::id()));
-            std::fs::create_dir_all(&dir).unwrap();
-            let covs: PathBuf = dir.join("covs.npy");
-            std::fs::write(&covs, encode_stack_with_nan(&set)).unwrap();
-            std::fs::write(dir.join("mask.npy"), encode_mask(&set)).unwrap();
-            let script = concat!(
-                env!("CARGO_MANIFEST_DIR"),
-                "/tests/reference/bench_reference.py"
-            );
-            let out = Command::new(py)
-                .arg(script)
-                .arg(&dir)
-                .arg(if masked { "masked" } else { "full" })
-                .output()
-                .expect("run the reference");
-            let text = String::from_utf8_lossy(&out.stdout);
             let best = per_thread.last().copied().unwrap_or(f64::NAN);
-            for line in text.lines() {
-                if let Ok(v) = serde_json::from_str::<serde_json::Value>(line) {
-                    let rs = v["seconds"].as_f64().unwrap_or(f64::NAN);
-                    println!(
-                        "|  |  | reference ({}) | {} |  | {rs:.3} |  |  | lacuna {:.1}× faster | {:.1e} |",
-                        v["method"].as_str().unwrap_or("?"),
-                        v["iterations"],
-                        rs / best,
-                        v["gradient_norm"].as_f64().unwrap_or(f64::NAN)
-                    );
-                }
+            for &workers in &args.workers {
+                let Some(r) = run_reference(py, &set, masked, workers, None) else {
+                    continue;
+                };
+                println!(
+                    "|  |  | reference ({}, {workers} process{}) | {} |  | {:.3} |  |  | lacuna {:.1}× faster | {:.1e} |",
+                    r.method,
+                    if workers == 1 { "" } else { "es" },
+                    r.iterations,
+                    r.seconds,
+                    r.seconds / best,
+                    r.gradient_norm
+                );
             }
-            if !out.status.success() {
-                eprintln!("reference failed: {}", String::from_utf8_lossy(&out.stderr));
-            }
-            let _ = std::fs::remove_dir_all(&dir);
         }
     }
 }
