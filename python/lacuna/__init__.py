@@ -23,7 +23,7 @@ import numpy as np
 from . import _lacuna
 from ._lacuna import LacunaError, __version__
 
-__all__ = ["mean", "compare", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
+__all__ = ["mean", "means_by", "compare", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
 
 
 def _as_stack(stack: Any) -> np.ndarray:
@@ -164,6 +164,38 @@ def mean(
     s = _as_stack(stack)
     m = _as_mask(mask, s)
     w = _as_weights(weights, s.shape[0])
+    job = _mean_job(
+        scheme=scheme, tol=tol, max_iter=max_iter, init=init, starts=starts, seed=seed,
+        loading=loading, shrinkage=shrinkage, samples=samples, rank=rank, positions=positions,
+        correct_scale=correct_scale, effective_samples=effective_samples, regularize=regularize,
+        drop_unobserved=drop_unobserved, precondition=precondition, unit=unit,
+    )
+    names = _names(channels, s)
+    result, report = _lacuna.mean(s, m, w, names, json.dumps(job, allow_nan=False))
+    return result, json.loads(report)
+
+
+def _mean_job(
+    *,
+    scheme: str = "airm-observed",
+    tol: float = 1e-10,
+    max_iter: Optional[int] = None,
+    init: str = "available-case",
+    starts: int = 1,
+    seed: int = 0,
+    loading: float = 1e-2,
+    shrinkage: float = 0.1,
+    samples: Optional[int] = None,
+    rank: Optional[int] = None,
+    positions: Optional[Mapping[str, Sequence[float]]] = None,
+    correct_scale: bool = False,
+    effective_samples: Optional[float] = None,
+    regularize: Optional[str] = None,
+    drop_unobserved: bool = False,
+    precondition: bool = True,
+    unit: Optional[str] = None,
+) -> Dict[str, Any]:
+    """The settings of the library's MeanJob, checked for signs and finiteness."""
     job = {
         "scheme": scheme,
         "tol": float(tol),
@@ -191,13 +223,84 @@ def mean(
     for key in ("tol", "loading", "shrinkage", "effective_samples"):
         if job[key] is not None and not np.isfinite(job[key]):
             raise LacunaError(f"{key} must be a finite number, got {job[key]}")
+    return job
+
+
+def _names(channels: Optional[Sequence[str]], s: np.ndarray) -> Optional[List[str]]:
     names: Optional[List[str]] = None if channels is None else [str(c) for c in channels]
     if names is not None and len(names) != s.shape[1]:
-        raise LacunaError(
-            f"channels names {len(names)} channels, the stack has {s.shape[1]}"
-        )
-    result, report = _lacuna.mean(s, m, w, names, json.dumps(job, allow_nan=False))
-    return result, json.loads(report)
+        raise LacunaError(f"channels names {len(names)} channels, the stack has {s.shape[1]}")
+    return names
+
+
+def _per_trial(values: Optional[Sequence[Any]], what: str, n: int) -> Optional[List[str]]:
+    if values is None:
+        return None
+    v = [str(x) for x in values]
+    if len(v) != n:
+        raise LacunaError(f"{what} has {len(v)} entries for {n} trials")
+    return v
+
+
+def means_by(
+    stack: Any,
+    mask: Any = None,
+    *,
+    by: str,
+    labels: Optional[Sequence[Any]] = None,
+    sessions: Optional[Sequence[Any]] = None,
+    grand: str = "trials",
+    weights: Any = None,
+    channels: Optional[Sequence[str]] = None,
+    **settings: Any,
+) -> Tuple[Dict[str, np.ndarray], Dict[str, np.ndarray], Dict[str, Any]]:
+    """One mean per condition, per session or per (session, condition): the
+    job of ``lacuna mean --by``.
+
+    Parameters
+    ----------
+    stack, mask, weights, channels :
+        As in :func:`mean`.
+    by : ``"label"``, ``"session"`` or ``"session+label"``
+        What the trials are grouped by.
+    labels, sessions : sequences of length N
+        Each trial's label (condition) and session; ``by`` says which are needed.
+    grand : ``"trials"`` or ``"equal"``
+        With sessions, the grand mean of the session means weighs each
+        session by its trial count, or all alike.
+    **settings :
+        Any setting of :func:`mean` (``scheme``, ``tol``, ``drop_unobserved``, …),
+        applied within every group.
+
+    Returns
+    -------
+    means : dict
+        Group name (``label``, ``session`` or ``session/label``) to its mean
+        (p, p), NaN for channels the group left out. Each is exactly
+        :func:`mean` on that group's trials.
+    grand_means : dict
+        Name to grand mean (``"all sessions"``, or one per label with
+        ``by="session+label"``); empty for ``by="label"``.
+    report : dict
+        The groups.json document: every group's mean report, the distances
+        between group means, the grand means' sessions and weights.
+    """
+    s = _as_stack(stack)
+    m = _as_mask(mask, s)
+    w = _as_weights(weights, s.shape[0])
+    job = _mean_job(**settings)
+    groups, grands, report = _lacuna.grouped_mean(
+        s,
+        m,
+        w,
+        _names(channels, s),
+        _per_trial(labels, "labels", s.shape[0]),
+        _per_trial(sessions, "sessions", s.shape[0]),
+        json.dumps(job, allow_nan=False),
+        str(by),
+        str(grand),
+    )
+    return dict(groups), dict(grands), json.loads(report)
 
 
 def extract(

@@ -29,3 +29,18 @@ def compare(
     sessions: Optional[List[str]],
     job_json: str,
 ) -> str: ...
+def grouped_mean(
+    stack: npt.NDArray[np.float64],
+    mask: npt.NDArray[np.bool_],
+    weights: Optional[npt.NDArray[np.float64]],
+    channels: Optional[List[str]],
+    labels: Optional[List[str]],
+    sessions: Optional[List[str]],
+    job_json: str,
+    by: str,
+    grand: str,
+) -> Tuple[
+    List[Tuple[str, npt.NDArray[np.float64]]],
+    List[Tuple[str, npt.NDArray[np.float64]]],
+    str,
+]: ...

@@ -9,7 +9,7 @@ use pyo3::create_exception;
 use pyo3::exceptions::PyValueError;
 use pyo3::prelude::*;
 
-use lacuna::jobs::{CompareJob, ExtractJob, MeanJob};
+use lacuna::jobs::{CompareJob, ExtractJob, GrandWeighting, GroupBy, GroupedMeanJob, MeanJob};
 use lacuna::trials::{Trial, TrialSet};
 
 create_exception!(
@@ -21,9 +21,10 @@ create_exception!(
 
 /// The library's message, with advice phrased for Python (keyword
 /// arguments, not command-line flags).
-fn to_py(e: lacuna::LacunaError) -> PyErr {
+fn advice(e: &lacuna::LacunaError) -> String {
     use lacuna::LacunaError as E;
-    let msg = match &e {
+    match e {
+        E::InGroup { group, source } => format!("group '{group}': {}", advice(source)),
         E::NeverObserved { .. } => format!("{e}; pass drop_unobserved=True to leave it out"),
         E::UnknownName {
             closest: Some(c), ..
@@ -32,8 +33,11 @@ fn to_py(e: lacuna::LacunaError) -> PyErr {
             "{e}; regularise first (regularize=\"shrinkage:0.1\", \"loading:0.01\", or \"oas\" with samples=T), or choose a scheme that takes such windows"
         ),
         _ => e.to_string(),
-    };
-    LacunaError::new_err(msg)
+    }
+}
+
+fn to_py(e: lacuna::LacunaError) -> PyErr {
+    LacunaError::new_err(advice(&e))
 }
 
 /// Builds a trial set from a (N, p, p) stack and a (N, p) observation mask.
@@ -110,6 +114,78 @@ fn mean<'py>(
         .collect();
     let array = flat.into_pyarray(py).reshape([p, p])?;
     Ok((array, report))
+}
+
+/// A p×p matrix as a NumPy array.
+fn to_array<'py>(py: Python<'py>, m: &lacuna::Mat) -> PyResult<Bound<'py, PyArray2<f64>>> {
+    let p = m.nrows();
+    let flat: Vec<f64> = (0..p)
+        .flat_map(|a| (0..p).map(move |b| (a, b)))
+        .map(|(a, b)| m[(a, b)])
+        .collect();
+    flat.into_pyarray(py).reshape([p, p])
+}
+
+/// Named means (group or grand) as NumPy arrays.
+type NamedMeans<'py> = Vec<(String, Bound<'py, PyArray2<f64>>)>;
+
+/// grouped_mean(stack, mask, weights, channels, labels, sessions, job_json, by, grand)
+///     -> (group_means, grand_means, report_json)
+///
+/// One mean per label, session or (session, label) (`lacuna::jobs::GroupedMeanJob`,
+/// the job of `lacuna mean --by`): lists of (name, mean) pairs and the
+/// groups.json document as text (without file provenance).
+#[pyfunction]
+#[pyo3(signature = (stack, mask, weights, channels, labels, sessions, job_json, by, grand))]
+#[allow(clippy::too_many_arguments)]
+fn grouped_mean<'py>(
+    py: Python<'py>,
+    stack: PyReadonlyArray3<'py, f64>,
+    mask: PyReadonlyArray2<'py, bool>,
+    weights: Option<PyReadonlyArray1<'py, f64>>,
+    channels: Option<Vec<String>>,
+    labels: Option<Vec<String>>,
+    sessions: Option<Vec<String>>,
+    job_json: &str,
+    by: &str,
+    grand: &str,
+) -> PyResult<(NamedMeans<'py>, NamedMeans<'py>, String)> {
+    let mean: MeanJob = serde_json::from_str(job_json)
+        .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
+    let job = GroupedMeanJob {
+        mean,
+        by: GroupBy::from_name(by).map_err(to_py)?,
+        grand: GrandWeighting::from_name(grand).map_err(to_py)?,
+    };
+    let (data, shape, observed, weights) = owned(&stack, &mask, weights.as_ref())?;
+    type Named = Vec<(String, lacuna::Mat)>;
+    let (groups, grands, report) = py
+        .detach(move || -> lacuna::Result<(Named, Named, String)> {
+            let mut set = trial_set(&data, shape, &observed, weights, channels)?;
+            set.labels = labels;
+            set.sessions = sessions;
+            let out = job.run(&set, None)?;
+            let report = serde_json::to_string(&out.report(None))
+                .map_err(|e| lacuna::LacunaError::Numerical(e.to_string()))?;
+            let groups = out
+                .groups
+                .iter()
+                .map(|g| (g.name.clone(), g.mean.clone()))
+                .collect();
+            let grands = out
+                .grand
+                .iter()
+                .filter_map(|g| g.mean.clone().map(|m| (g.name.clone(), m)))
+                .collect();
+            Ok((groups, grands, report))
+        })
+        .map_err(to_py)?;
+    let convert = |v: Named| -> PyResult<NamedMeans<'py>> {
+        v.into_iter()
+            .map(|(n, m)| Ok((n, to_array(py, &m)?)))
+            .collect()
+    };
+    Ok((convert(groups)?, convert(grands)?, report))
 }
 
 /// Covariances (N, p, p), observation mask (N, p) and the record as JSON.
@@ -234,5 +310,6 @@ fn _lacuna(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(schemes, m)?)?;
     m.add_function(wrap_pyfunction!(extract, m)?)?;
     m.add_function(wrap_pyfunction!(compare, m)?)?;
+    m.add_function(wrap_pyfunction!(grouped_mean, m)?)?;
     Ok(())
 }

@@ -1,19 +1,15 @@
-//! `lacuna-bench --mode compare`: the whole `compare` pipeline (all schemes,
-//! 20 simulated-dropout repeats, 5-fold held-out fit, contributions with
-//! leave-one-out and 10 bootstrap resamples) on N = 2000, p = 32, timed per
-//! stage. The in-run reference is one airm-observed solve on the same data:
-//! the ratio says what the whole comparison costs in masked means.
+//! `lacuna-bench --mode compare`: exactly what `lacuna compare` runs with its
+//! defaults (every scheme, simulated dropout, held-out fit, decoding with
+//! labels, contributions with leave-one-out and the bootstrap), timed per
+//! stage from the job's own record. The in-run reference is what
+//! `lacuna mean` runs with its defaults (airm-observed to 1e-10) on the same
+//! trials: the ratio says what the whole comparison costs in masked means.
 
 use std::time::Instant;
 
-use lacuna::diagnose::{ContributionOptions, contributions};
-use lacuna::select::{
-    LOADING_GRID, SelectOptions, decoding, default_candidates, held_out_fit, simulated_dropout,
-};
+use lacuna::jobs::{CompareJob, MeanJob};
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
-use lacuna::{AveragingScheme, SchemeOptions};
-use rayon::prelude::*;
 
 pub fn run(n: usize, p: usize) {
     let mut rng = Rng::new(7);
@@ -27,61 +23,36 @@ pub fn run(n: usize, p: usize) {
             .map(|i| if i % 2 == 0 { "a" } else { "b" }.to_string())
             .collect(),
     );
-    let base = SchemeOptions {
-        stop: lacuna::solve::StopRule {
-            tol: 1e-8,
-            max_iter: 500,
-        },
-        ..SchemeOptions::default()
+    let t = Instant::now();
+    let mean = MeanJob::default().run(set.clone(), None).unwrap();
+    let reference = t.elapsed().as_secs_f64();
+    let job = CompareJob {
+        samples: Some(4 * p),
+        ..CompareJob::default()
     };
     let t = Instant::now();
-    let one = lacuna::schemes::AirmObserved.average(&set, &base).unwrap();
-    let reference = t.elapsed().as_secs_f64();
-    let total = Instant::now();
-    let cands = default_candidates(&base, &[], &LOADING_GRID);
-    let t = Instant::now();
-    let _means: Vec<_> = cands.par_iter().map(|c| c.run(&set).ok()).collect();
-    let schemes = t.elapsed().as_secs_f64();
-    let opts = SelectOptions::default();
-    let t = Instant::now();
-    simulated_dropout(&set, &cands, &opts).unwrap();
-    let dropout = t.elapsed().as_secs_f64();
-    let t = Instant::now();
-    held_out_fit(&set, &cands, &opts).unwrap();
-    let fit = t.elapsed().as_secs_f64();
-    let t = Instant::now();
-    decoding(&set, &cands, &opts).unwrap();
-    let dec = t.elapsed().as_secs_f64();
-    let t = Instant::now();
-    contributions(
-        &set,
-        &one.mean,
-        &ContributionOptions {
-            leave_one_out: true,
-            bootstrap: 20,
-            seed: 0,
-            scheme_options: base.clone(),
-        },
-    )
-    .unwrap();
-    let contrib = t.elapsed().as_secs_f64();
-    let all = total.elapsed().as_secs_f64();
+    let cmp = job.run(set, None).unwrap();
+    let all = t.elapsed().as_secs_f64();
     println!(
         "compare on N = {n}, p = {p} ({} candidates, 30% of trials missing 1-4 channels, labels in two classes), {} threads",
-        cands.len(),
+        cmp.schemes.len(),
         rayon::current_num_threads()
     );
-    println!("| stage | seconds |\n|---|---|");
-    for (k, v) in [
-        ("all schemes once", schemes),
-        ("simulated dropout, 20 repeats", dropout),
-        ("held-out fit, 5 folds", fit),
-        ("decoding, 5 folds", dec),
-        ("contributions (leave-one-out + 10 bootstrap)", contrib),
-        ("**total**", all),
-        ("reference: one airm-observed solve", reference),
-    ] {
-        println!("| {k} | {v:.2} |");
+    println!("| stage | seconds | masked means |\n|---|---|---|");
+    for (k, v) in &cmp.stage_seconds {
+        println!("| {k} | {v:.2} | {:.1} |", v / reference);
     }
-    println!("total / reference = {:.0} masked means", all / reference);
+    println!("| **total** | {all:.2} | {:.1} |", all / reference);
+    println!(
+        "| reference: `mean` defaults (airm-observed, tol 1e-10, {} iterations) | {reference:.2} | 1 |",
+        mean.result.diagnostics.iterations
+    );
+    println!(
+        "\nper candidate (all schemes once):\n| candidate | iterations | seconds |\n|---|---|---|"
+    );
+    for row in &cmp.schemes {
+        if let lacuna::jobs::comparison::SchemeRow::Ok(m) = row {
+            println!("| {} | {} | {:.2} |", m.scheme, m.iterations, m.seconds);
+        }
+    }
 }

@@ -20,6 +20,7 @@ pub fn exit_code(e: &LacunaError) -> i32 {
         | LacunaError::MissingSetting { .. } => 2,
         LacunaError::Numerical(_) => 4,
         LacunaError::Write { .. } => 1,
+        LacunaError::InGroup { source, .. } => exit_code(source),
     }
 }
 
@@ -70,6 +71,7 @@ pub fn describe(e: &LacunaError) -> String {
                 "{e}\nhint: windows shorter than the channel count, average referencing and interpolation make covariances singular; estimate them with shrinkage from the recordings (`lacuna extract --estimator oas`), or mark the dependent channel as unobserved in the mask"
             )
         }
+        LacunaError::InGroup { group, source } => format!("group '{group}': {}", describe(source)),
         _ => e.to_string(),
     }
 }

@@ -124,6 +124,22 @@ pub struct MeanArgs {
     /// covered channels (plain L-BFGS; the same mean, usually more iterations).
     #[arg(long)]
     no_precondition: bool,
+    /// Trial labels: a CSV with a header, one row per trial, a `label`
+    /// column (else the first) and optionally a `session` column — the
+    /// labels.csv `lacuna extract` writes. Needed by --by.
+    #[arg(long, value_name = "LABELS.csv")]
+    labels: Option<PathBuf>,
+    /// One mean per group instead of one for all trials: `label` (per
+    /// condition), `session`, or `session+label`. --out is then a folder
+    /// that receives each group's mean (.npy and .csv), distances.csv
+    /// between the group means, and groups.json with every group's report.
+    #[arg(long, value_name = "label|session|session+label")]
+    by: Option<String>,
+    /// With --by session or session+label, the grand mean of the session
+    /// means weighs each session by its trial count (`trials`) or alike
+    /// (`equal`).
+    #[arg(long, default_value = "trials", value_name = "trials|equal")]
+    grand: String,
     /// Print no summary and no progress (errors and warnings still go to stderr).
     #[arg(long)]
     quiet: bool,
@@ -132,20 +148,9 @@ pub struct MeanArgs {
     json: bool,
 }
 
-pub fn run(a: MeanArgs) -> Result<i32> {
-    // The format follows the extension: refuse one we would not honour.
-    let ext = a
-        .out
-        .extension()
-        .and_then(|e| e.to_str())
-        .map(str::to_ascii_lowercase);
-    if !matches!(ext.as_deref(), Some("npy" | "csv")) {
-        return Err(lacuna::LacunaError::InvalidOption(format!(
-            "--out {}: write the mean as .npy (float64 p×p) or .csv (a header of channel names); the extension chooses the format",
-            a.out.display()
-        )));
-    }
-    let mut job = MeanJob {
+/// The mean job the flags describe (positions are loaded after the data).
+fn job_of(a: &MeanArgs) -> MeanJob {
+    MeanJob {
         scheme: a.scheme.clone(),
         tol: a.tol,
         max_iter: a.max_iter,
@@ -163,7 +168,31 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         drop_unobserved: a.drop_unobserved,
         no_precondition: a.no_precondition,
         unit: a.unit.clone(),
-    };
+    }
+}
+
+pub fn run(a: MeanArgs) -> Result<i32> {
+    if a.by.is_some() {
+        return run_grouped(a);
+    }
+    if a.labels.is_some() {
+        return Err(lacuna::LacunaError::InvalidOption(
+            "--labels is used with --by (one mean per label or session); without --by the mean pools every trial".into(),
+        ));
+    }
+    // The format follows the extension: refuse one we would not honour.
+    let ext = a
+        .out
+        .extension()
+        .and_then(|e| e.to_str())
+        .map(str::to_ascii_lowercase);
+    if !matches!(ext.as_deref(), Some("npy" | "csv")) {
+        return Err(lacuna::LacunaError::InvalidOption(format!(
+            "--out {}: write the mean as .npy (float64 p×p) or .csv (a header of channel names); the extension chooses the format",
+            a.out.display()
+        )));
+    }
+    let mut job = job_of(&a);
     // Settings are checked before any file is read.
     job.options(None)?;
     {
@@ -281,6 +310,200 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     if !run.converged() {
         for line in &report.advice {
             eprintln!("warning: {line}");
+        }
+        return Ok(4);
+    }
+    Ok(0)
+}
+
+/// `--by`: one mean per group, written into the --out folder.
+fn run_grouped(a: MeanArgs) -> Result<i32> {
+    use lacuna::LacunaError;
+    use lacuna::jobs::{GrandWeighting, GroupBy, GroupedMeanJob};
+    let by = GroupBy::from_name(a.by.as_deref().unwrap_or_default())?;
+    let grand = GrandWeighting::from_name(&a.grand)?;
+    if a.report.is_some() {
+        return Err(LacunaError::InvalidOption(
+            "--report: with --by every group's report goes into the --out folder (groups.json)"
+                .into(),
+        ));
+    }
+    if let Some(ext) = a.out.extension().and_then(|e| e.to_str())
+        && matches!(ext.to_ascii_lowercase().as_str(), "npy" | "csv")
+    {
+        return Err(LacunaError::InvalidOption(format!(
+            "--out {}: with --by, --out names a folder (it receives one mean per group)",
+            a.out.display()
+        )));
+    }
+    let Some(labels) = a.labels.clone() else {
+        return Err(LacunaError::MissingSetting {
+            setting: "labels".into(),
+            needed_for: format!("--by {}", by.name()),
+        });
+    };
+    let mut job = GroupedMeanJob {
+        mean: job_of(&a),
+        by,
+        grand,
+    };
+    job.mean.options(None)?;
+    let positions_file = super::positions_file(&a.positions).map(PathBuf::from);
+    let mut inputs: Vec<(&str, &std::path::Path)> =
+        vec![("--covs", &a.covs), ("--labels", &labels)];
+    for (o, p) in [
+        ("--mask", &a.mask),
+        ("--weights", &a.weights),
+        ("--positions", &positions_file),
+    ] {
+        if let Some(p) = p {
+            inputs.push((o, p));
+        }
+    }
+    lacuna::output::check_paths(&inputs, &[], &[("--out", &a.out)])?;
+    if let Ok(m) = std::fs::metadata(&a.covs) {
+        lacuna::limits::check_fits("lacuna mean", 2 * m.len(), rayon::current_num_threads())?;
+    }
+    let set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
+    let mut set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
+    let (l, s) = lacuna::trials::io::read_labels(&labels, set.len())?;
+    set.labels = Some(l);
+    set.sessions = s;
+    if let Some(spec) = &a.positions {
+        job.mean.positions = Some(super::load_positions(spec, set.channels())?);
+    }
+    let show_progress = !a.quiet && std::io::stderr().is_terminal();
+    let progress = move |name: &str, done: usize, total: usize| {
+        if show_progress {
+            eprint!("\r  group {}/{total}: {name}   ", done + 1);
+        }
+    };
+    let means = job.run(&set, Some(&progress))?;
+    if show_progress {
+        eprintln!();
+    }
+    let mut input_paths: Vec<&std::path::Path> = vec![&a.covs, &labels];
+    for p in [&a.mask, &a.weights].into_iter().flatten() {
+        input_paths.push(p);
+    }
+    input_paths.extend(super::positions_file(&a.positions));
+    let report = means.report(Some(lacuna::report::provenance::provenance(&input_paths)?));
+    let json = serde_json::to_string_pretty(&report).unwrap_or_default();
+    let mut files: Vec<(PathBuf, Vec<u8>)> = Vec::new();
+    let channels = &means.channels;
+    for (g, entry) in means.groups.iter().zip(&report.groups) {
+        for f in &entry.files {
+            let path = a.out.join(f);
+            let bytes = lacuna::trials::io::encode_matrix(&path, &g.mean, channels);
+            files.push((path, bytes));
+        }
+    }
+    for (g, entry) in means.grand.iter().zip(&report.grand) {
+        let m = g.mean.as_ref().expect("computed by run");
+        for f in &entry.files {
+            let path = a.out.join(f);
+            let bytes = lacuna::trials::io::encode_matrix(&path, m, channels);
+            files.push((path, bytes));
+        }
+    }
+    let names: Vec<String> = means.groups.iter().map(|g| g.name.clone()).collect();
+    let mut header = vec!["group".to_string()];
+    header.extend(names.iter().cloned());
+    let rows = means.distances.iter().zip(&names).map(|(row, name)| {
+        let mut r = vec![name.clone()];
+        r.extend(
+            row.iter()
+                .map(|d| d.map_or(String::new(), |v| format!("{v:.6}"))),
+        );
+        r
+    });
+    files.push((
+        a.out.join("distances.csv"),
+        lacuna::report::tables::table(&header, rows),
+    ));
+    files.push((a.out.join("groups.json"), json.as_bytes().to_vec()));
+    lacuna::output::write_outputs(Some(&a.out), files)?;
+    if a.json {
+        println!("{json}");
+    }
+    if !a.quiet && !a.json {
+        println!(
+            "lacuna mean: {} trials, {} channels, scheme {}, one mean per {} ({} groups)",
+            set.len(),
+            set.n_channels(),
+            a.scheme,
+            by.name(),
+            means.groups.len()
+        );
+        for (g, entry) in means.groups.iter().zip(&report.groups) {
+            let d = &g.run.result.diagnostics;
+            println!(
+                "  {:<24} {:>6} trials  {}  condition number {:.3e}{}  -> {}",
+                g.name,
+                g.trials.len(),
+                if !d.iterative {
+                    "closed form".to_string()
+                } else if d.converged {
+                    format!("converged in {} iterations", d.iterations)
+                } else {
+                    format!("NOT converged ({} iterations)", d.iterations)
+                },
+                g.run.summary.condition_number,
+                if g.run.dropped.is_empty() {
+                    String::new()
+                } else {
+                    format!("  (left out, never observed here: {})", g.run.dropped.join(", "))
+                },
+                entry.files[0]
+            );
+        }
+        let pairs: Vec<(&String, &String, f64)> = names
+            .iter()
+            .enumerate()
+            .flat_map(|(i, x)| {
+                let row = &means.distances[i];
+                names
+                    .iter()
+                    .enumerate()
+                    .skip(i + 1)
+                    .filter_map(move |(j, y)| row[j].map(|d| (x, y, d)))
+            })
+            .collect();
+        if pairs.len() <= 10 {
+            if !pairs.is_empty() {
+                println!("  affine-invariant distances between the group means (distances.csv):");
+            }
+            for (x, y, d) in &pairs {
+                println!("    {x} – {y}: {d:.4}");
+            }
+        } else {
+            let lo = pairs.iter().map(|t| t.2).fold(f64::INFINITY, f64::min);
+            let hi = pairs.iter().map(|t| t.2).fold(0.0, f64::max);
+            println!(
+                "  {} distances between the group means, {lo:.4} to {hi:.4} (distances.csv)",
+                pairs.len()
+            );
+        }
+        for (g, entry) in means.grand.iter().zip(&report.grand) {
+            println!(
+                "  grand mean of {} over {} session means (weighted by {}){} -> {}",
+                g.name,
+                g.sessions.len(),
+                g.weighting.name(),
+                if g.converged { "" } else { ", NOT converged" },
+                entry.files[0]
+            );
+        }
+        println!("  wrote {}", a.out.display());
+    }
+    if !means.converged() {
+        for entry in &report.groups {
+            for line in &entry.report.advice {
+                eprintln!("warning: group '{}': {line}", entry.name);
+            }
+        }
+        for g in means.grand.iter().filter(|g| !g.converged) {
+            eprintln!("warning: the grand mean of {} did not converge", g.name);
         }
         return Ok(4);
     }

@@ -11,10 +11,12 @@ pub use mean::{MeanJob, MeanRun};
 pub mod compare;
 pub mod comparison;
 pub mod extraction_record;
+pub mod grouped;
 
 pub use compare::CompareJob;
 pub use comparison::Comparison;
 pub use extraction_record::ExtractionRecord;
+pub use grouped::{GrandWeighting, GroupBy, GroupedMeanJob, GroupedMeans};
 
 pub use crate::error::{float_in, int_in};
 

@@ -2,7 +2,7 @@
 
 Run from the repository root:
     python3 -m venv /tmp/lacuna-ref && /tmp/lacuna-ref/bin/pip install -r tests/reference/requirements.txt
-    /tmp/lacuna-ref/bin/python tests/reference/make_fixtures.py
+    /tmp/lacuna-ref/bin/python tests/reference/make_fixtures.py [NAME ...]
 
 Writes tests/reference/fixtures/*.json. The fixtures are committed, so
 `cargo test` needs no Python. Versions are pinned in requirements.txt.
@@ -16,6 +16,7 @@ instead of Riemannian L-BFGS.
 """
 import json
 import os
+import sys
 
 import numpy as np
 import scipy
@@ -169,6 +170,68 @@ def masked_cases():
     return {"meta": meta(), "cases": cases}
 
 
+def masked_rare_cases():
+    """Masked sets where channel 0 survives in a handful of trials (a failed
+    electrode): the cost is nearly flat along that channel's entries, the
+    case lacuna preconditions. Own seed, so the other fixtures stay as they are."""
+    rng = np.random.default_rng(20261203)
+    cases = []
+    for p, n, kept in [(8, 300, 8), (16, 300, 10)]:
+        sigma = random_spd(p, 1e3, rng)
+        ls = np.linalg.cholesky(sigma)
+        keep = set(np.linspace(0, n - 1, kept).round().astype(int).tolist())
+        blocks, obs = [], []
+        for i in range(n):
+            xsamp = ls @ rng.standard_normal((p, 3 * p))
+            gain = np.exp(0.3 * rng.standard_normal(p))
+            c = sym((gain[:, None] * (xsamp @ xsamp.T / (3 * p))) * gain[None, :])
+            lost = set(rng.choice(np.arange(1, p), size=rng.integers(0, 3), replace=False).tolist())
+            if i not in keep:
+                lost.add(0)
+            o = [k for k in range(p) if k not in lost]
+            blocks.append(c[np.ix_(o, o)])
+            obs.append(o)
+        w = np.ones(n) / n
+        s = np.zeros((p, p))
+        cnt = np.zeros((p, p))
+        for c, o in zip(blocks, obs):
+            s[np.ix_(o, o)] += c
+            cnt[np.ix_(o, o)] += 1
+        x0 = s / cnt
+        ev, u = np.linalg.eigh(x0)
+        x0 = (u * np.maximum(ev, 1e-3 * np.trace(x0) / p)) @ u.T
+        l0 = np.linalg.cholesky(x0)
+        l0[np.diag_indices(p)] = np.log(np.diag(l0))
+        # Cost-based stopping would end ~1e-7 from the optimum along the
+        # rare channel's flat direction (sqrt(eps·F / curvature)); ftol = 0
+        # runs L-BFGS-B on the gradient until its line search gives out,
+        # then a root finder polishes the gradient (reported as gradient_norm).
+        res = sopt.minimize(masked_cost_grad, l0[np.tril_indices(p)], args=(p, blocks, obs, w), jac=True,
+                            method="L-BFGS-B",
+                            options={"maxiter": 50000, "maxcor": 50, "ftol": 0.0, "gtol": 1e-15, "maxls": 100})
+        # Polish: solve gradient = 0 by MINPACK's hybrid Powell method
+        # (finite-difference Jacobian of the analytic gradient), which
+        # converges fast near the optimum where the cost is nearly flat.
+        root = sopt.root(lambda th: masked_cost_grad(th, p, blocks, obs, w)[1], res.x, method="hybr",
+                         options={"xtol": 1e-15})
+        if np.linalg.norm(masked_cost_grad(root.x, p, blocks, obs, w)[1]) < np.linalg.norm(
+                masked_cost_grad(res.x, p, blocks, obs, w)[1]):
+            res.x, res.fun = root.x, masked_cost_grad(root.x, p, blocks, obs, w)[0]
+        l = np.zeros((p, p))
+        l[np.tril_indices(p)] = res.x
+        l[np.diag_indices(p)] = np.exp(np.diag(l))
+        x = l @ l.T
+        cases.append({
+            "p": p, "n": n, "rare_channel_trials": kept,
+            "gradient_norm": float(np.linalg.norm(masked_cost_grad(res.x, p, blocks, obs, w)[1])),
+            "observed": obs,
+            "blocks": [b.tolist() for b in blocks],
+            "mean": x.tolist(), "cost": float(res.fun), "optimizer_message": str(res.message),
+            "optimizer_iterations": int(res.nit),
+        })
+    return {"meta": meta(), "cases": cases}
+
+
 def max_det_fill(x, free):
     """Maximum-determinant completion by scipy over the free entries
     (Dempster 1972): maximise log det with the pinned entries fixed."""
@@ -239,8 +302,11 @@ def masked_free_cases():
 
 def main():
     os.makedirs(OUT, exist_ok=True)
+    only = set(sys.argv[1:])  # fixture names to (re)write; all when empty
     for name, fn in [("matrix_functions", matrix_functions), ("karcher", karcher_cases), ("masked", masked_cases),
-                     ("masked_free", masked_free_cases)]:
+                     ("masked_free", masked_free_cases), ("masked_rare", masked_rare_cases)]:
+        if only and name not in only:
+            continue
         with open(os.path.join(OUT, name + ".json"), "w") as f:
             json.dump(fn(), f)
         print("wrote", name)
