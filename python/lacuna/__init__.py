@@ -23,7 +23,7 @@ import numpy as np
 from . import _lacuna
 from ._lacuna import LacunaError, __version__
 
-__all__ = ["mean", "means_by", "compare", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
+__all__ = ["mean", "means_by", "recentre", "compare", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
 
 
 def _as_stack(stack: Any) -> np.ndarray:
@@ -301,6 +301,43 @@ def means_by(
         str(grand),
     )
     return dict(groups), dict(grands), json.loads(report)
+
+
+def recentre(
+    stack: Any,
+    mask: Any = None,
+    *,
+    sessions: Optional[Sequence[Any]] = None,
+    weights: Any = None,
+    channels: Optional[Sequence[str]] = None,
+    **settings: Any,
+) -> Tuple[np.ndarray, List[Dict[str, Any]]]:
+    """Re-centre each session at the identity: the job of ``lacuna recentre``.
+
+    Every trial's observed block C becomes M[o,o]^{-1/2} C M[o,o]^{-1/2}, M
+    its session's mean (the masked mean unless ``scheme`` says otherwise;
+    any setting of :func:`mean` may be given). Without ``sessions`` all
+    trials form one session.
+
+    Returns
+    -------
+    stack : array (N, p, p)
+        The re-centred trials, NaN where unobserved (the mask is unchanged).
+    sessions : list of dict
+        Per session: ``session``, ``trials``, ``converged``, ``iterations``,
+        ``left_out`` (channels it never observed) and ``residual`` (distance
+        of the re-centred session's masked mean from the identity: 0 up to
+        rounding with complete trials, small with masks).
+    """
+    s = _as_stack(stack)
+    m = _as_mask(mask, s)
+    w = _as_weights(weights, s.shape[0])
+    job = _mean_job(**settings)
+    out, record = _lacuna.recentre(
+        s, m, w, _names(channels, s), _per_trial(sessions, "sessions", s.shape[0]),
+        json.dumps(job, allow_nan=False),
+    )
+    return out, json.loads(record)
 
 
 def extract(

@@ -44,3 +44,11 @@ def grouped_mean(
     List[Tuple[str, npt.NDArray[np.float64]]],
     str,
 ]: ...
+def recentre(
+    stack: npt.NDArray[np.float64],
+    mask: npt.NDArray[np.bool_],
+    weights: Optional[npt.NDArray[np.float64]],
+    channels: Optional[List[str]],
+    sessions: Optional[List[str]],
+    job_json: str,
+) -> Tuple[npt.NDArray[np.float64], str]: ...

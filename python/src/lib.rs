@@ -9,7 +9,9 @@ use pyo3::create_exception;
 use pyo3::exceptions::PyValueError;
 use pyo3::prelude::*;
 
-use lacuna::jobs::{CompareJob, ExtractJob, GrandWeighting, GroupBy, GroupedMeanJob, MeanJob};
+use lacuna::jobs::{
+    CompareJob, ExtractJob, GrandWeighting, GroupBy, GroupedMeanJob, MeanJob, RecentreJob,
+};
 use lacuna::trials::{Trial, TrialSet};
 
 create_exception!(
@@ -188,6 +190,40 @@ fn grouped_mean<'py>(
     Ok((convert(groups)?, convert(grands)?, report))
 }
 
+/// recentre(stack, mask, weights, channels, sessions, job_json) -> (covs, sessions_json)
+///
+/// `lacuna::jobs::RecentreJob` (the job of `lacuna recentre`): every trial's
+/// observed block whitened by its session mean's matching sub-block. Returns
+/// the re-centred stack (NaN where unobserved; the mask is unchanged) and
+/// the per-session record as JSON text.
+#[pyfunction]
+#[pyo3(signature = (stack, mask, weights, channels, sessions, job_json))]
+fn recentre<'py>(
+    py: Python<'py>,
+    stack: PyReadonlyArray3<'py, f64>,
+    mask: PyReadonlyArray2<'py, bool>,
+    weights: Option<PyReadonlyArray1<'py, f64>>,
+    channels: Option<Vec<String>>,
+    sessions: Option<Vec<String>>,
+    job_json: &str,
+) -> PyResult<(Bound<'py, PyArray3<f64>>, String)> {
+    let mean: MeanJob = serde_json::from_str(job_json)
+        .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
+    let (data, shape, observed, weights) = owned(&stack, &mask, weights.as_ref())?;
+    let (flat, record) = py
+        .detach(move || -> lacuna::Result<(Vec<f64>, String)> {
+            let mut set = trial_set(&data, shape, &observed, weights, channels)?;
+            set.sessions = sessions;
+            let out = RecentreJob { mean }.run(&set)?;
+            let record = serde_json::to_string(&out.sessions)
+                .map_err(|e| lacuna::LacunaError::Numerical(e.to_string()))?;
+            Ok((lacuna::trials::io::nan_stack(&out.set), record))
+        })
+        .map_err(to_py)?;
+    let [n, p, _] = shape;
+    Ok((flat.into_pyarray(py).reshape([n, p, p])?, record))
+}
+
 /// Covariances (N, p, p), observation mask (N, p) and the record as JSON.
 type Extracted<'py> = (
     Bound<'py, PyArray3<f64>>,
@@ -311,5 +347,6 @@ fn _lacuna(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(extract, m)?)?;
     m.add_function(wrap_pyfunction!(compare, m)?)?;
     m.add_function(wrap_pyfunction!(grouped_mean, m)?)?;
+    m.add_function(wrap_pyfunction!(recentre, m)?)?;
     Ok(())
 }

@@ -80,3 +80,23 @@ def test_bad_grouping_input_raises(demo):
     bad[3] = ""
     with pytest.raises(lacuna.LacunaError, match="trial 3"):
         lacuna.means_by(stack, mask, by="label", labels=bad)
+
+
+def test_recentre_matches_the_command_line(demo):
+    stack, mask, labels, sessions = demo
+    out, record = lacuna.recentre(stack, mask, sessions=sessions, drop_unobserved=True)
+    assert [r["session"] for r in record] == ["session-1", "session-2", "session-3"]
+    assert record[1]["left_out"] == ["ch15"]
+    with tempfile.TemporaryDirectory() as d:
+        o = os.path.join(d, "c")
+        code, err = run_cli(
+            "recentre", "--covs", str(DEMO / "covs.npy"), "--mask", str(DEMO / "mask.npy"),
+            "--labels", str(DEMO / "labels.csv"), "--out", o, "--quiet", "--drop-unobserved",
+        )
+        assert code == 0, err
+        np.testing.assert_array_equal(np.load(os.path.join(o, "covs.npy")), out)
+    # Masks kept: NaN exactly where the input was unobserved.
+    diag = np.diagonal(out, axis1=1, axis2=2)
+    np.testing.assert_array_equal(np.isnan(diag), ~mask.astype(bool))
+    with pytest.raises(lacuna.LacunaError, match="entries"):
+        lacuna.recentre(stack, mask, sessions=sessions[:-1])

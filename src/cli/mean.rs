@@ -452,7 +452,10 @@ fn run_grouped(a: MeanArgs) -> Result<i32> {
                 if g.run.dropped.is_empty() {
                     String::new()
                 } else {
-                    format!("  (left out, never observed here: {})", g.run.dropped.join(", "))
+                    format!(
+                        "  (left out, never observed here: {})",
+                        g.run.dropped.join(", ")
+                    )
                 },
                 entry.files[0]
             );

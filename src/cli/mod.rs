@@ -9,6 +9,7 @@ mod errors;
 mod extract;
 mod mean;
 mod progress;
+mod recentre;
 mod report;
 mod synth;
 
@@ -76,6 +77,9 @@ enum Command {
     /// Run every scheme on the same trials, rank them with evidence, and
     /// report each channel's contribution.
     Compare(compare::CompareArgs),
+    /// Whiten every trial by its session's mean (masks kept), so sessions
+    /// can be pooled.
+    Recentre(recentre::RecentreArgs),
     /// Write the self-contained HTML report of a compare folder.
     Report(report::ReportArgs),
     /// List the averaging schemes and what each assumes.
@@ -125,6 +129,7 @@ pub fn run() -> i32 {
         Command::Extract(args) => extract::run(args),
         Command::Mean(args) => mean::run(args),
         Command::Compare(args) => compare::run(args),
+        Command::Recentre(args) => recentre::run(args),
         Command::Report(args) => report::run(args),
         Command::Schemes => {
             for s in lacuna::all_schemes() {

@@ -161,11 +161,7 @@ impl GroupedMeans {
 impl GroupedMeanJob {
     /// Groups the trials of `set` and runs the mean job on each group.
     /// `progress(group, done, total)` is called before each group.
-    pub fn run(
-        &self,
-        set: &TrialSet,
-        progress: Option<&GroupProgress>,
-    ) -> Result<GroupedMeans> {
+    pub fn run(&self, set: &TrialSet, progress: Option<&GroupProgress>) -> Result<GroupedMeans> {
         self.mean.options(None)?;
         let keys = group_keys(set, self.by)?;
         let mut order: Vec<(Option<String>, Option<String>)> = Vec::new();

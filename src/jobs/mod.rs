@@ -12,11 +12,13 @@ pub mod compare;
 pub mod comparison;
 pub mod extraction_record;
 pub mod grouped;
+pub mod recentre;
 
 pub use compare::CompareJob;
 pub use comparison::Comparison;
 pub use extraction_record::ExtractionRecord;
 pub use grouped::{GrandWeighting, GroupBy, GroupedMeanJob, GroupedMeans};
+pub use recentre::{RecentreJob, Recentred};
 
 pub use crate::error::{float_in, int_in};
 
