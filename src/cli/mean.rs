@@ -148,6 +148,23 @@ pub struct MeanArgs {
     json: bool,
 }
 
+/// Every input file with its flag (outputs must differ from all of them).
+fn input_files(a: &MeanArgs) -> Vec<(&'static str, PathBuf)> {
+    let positions = super::positions_file(&a.positions).map(PathBuf::from);
+    let mut inputs = vec![("--covs", a.covs.clone())];
+    for (flag, path) in [
+        ("--mask", &a.mask),
+        ("--weights", &a.weights),
+        ("--labels", &a.labels),
+        ("--positions", &positions),
+    ] {
+        if let Some(p) = path {
+            inputs.push((flag, p.clone()));
+        }
+    }
+    inputs
+}
+
 /// The mean job the flags describe (positions are loaded after the data).
 fn job_of(a: &MeanArgs) -> MeanJob {
     MeanJob {
@@ -196,17 +213,9 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     // Settings are checked before any file is read.
     job.options(None)?;
     {
-        let positions_file = super::positions_file(&a.positions).map(PathBuf::from);
-        let mut inputs: Vec<(&str, &std::path::Path)> = vec![("--covs", &a.covs)];
-        for (o, p) in [
-            ("--mask", &a.mask),
-            ("--weights", &a.weights),
-            ("--positions", &positions_file),
-        ] {
-            if let Some(p) = p {
-                inputs.push((o, p));
-            }
-        }
+        let inputs = input_files(&a);
+        let inputs: Vec<(&str, &std::path::Path)> =
+            inputs.iter().map(|(o, p)| (*o, p.as_path())).collect();
         let mut outputs: Vec<(&str, &std::path::Path)> = vec![("--out", &a.out)];
         if let Some(r) = &a.report {
             outputs.push(("--report", r));
@@ -348,18 +357,9 @@ fn run_grouped(a: MeanArgs) -> Result<i32> {
         grand,
     };
     job.mean.options(None)?;
-    let positions_file = super::positions_file(&a.positions).map(PathBuf::from);
-    let mut inputs: Vec<(&str, &std::path::Path)> =
-        vec![("--covs", &a.covs), ("--labels", &labels)];
-    for (o, p) in [
-        ("--mask", &a.mask),
-        ("--weights", &a.weights),
-        ("--positions", &positions_file),
-    ] {
-        if let Some(p) = p {
-            inputs.push((o, p));
-        }
-    }
+    let inputs = input_files(&a);
+    let inputs: Vec<(&str, &std::path::Path)> =
+        inputs.iter().map(|(o, p)| (*o, p.as_path())).collect();
     lacuna::output::check_paths(&inputs, &[], &[("--out", &a.out)])?;
     if let Ok(m) = std::fs::metadata(&a.covs) {
         lacuna::limits::check_fits("lacuna mean", 2 * m.len(), rayon::current_num_threads())?;

@@ -125,6 +125,19 @@ def masked_cost_grad(theta, p, blocks, obs, w):
     return f, gl[il]
 
 
+def pairwise_start(blocks, obs, p):
+    """Pairwise (available-case) average of the observed entries, its
+    spectrum floored at 1e-3 of the mean variance: an SPD starting point."""
+    s = np.zeros((p, p))
+    cnt = np.zeros((p, p))
+    for c, o in zip(blocks, obs):
+        s[np.ix_(o, o)] += c
+        cnt[np.ix_(o, o)] += 1
+    x0 = s / cnt
+    ev, u = np.linalg.eigh(x0)
+    return (u * np.maximum(ev, 1e-3 * np.trace(x0) / p)) @ u.T
+
+
 def masked_cases():
     cases = []
     for p, n, frac, max_lost in [(5, 40, 0.4, 2), (10, 60, 0.3, 3), (16, 80, 0.3, 4)]:
@@ -143,15 +156,7 @@ def masked_cases():
             fulls.append(c)
         w = np.ones(n) / n
         # Start from the complete-trial Karcher-free guess: pairwise average.
-        s = np.zeros((p, p))
-        cnt = np.zeros((p, p))
-        for c, o in zip(blocks, obs):
-            s[np.ix_(o, o)] += c
-            cnt[np.ix_(o, o)] += 1
-        x0 = s / cnt
-        ev, u = np.linalg.eigh(x0)
-        x0 = (u * np.maximum(ev, 1e-3 * np.trace(x0) / p)) @ u.T
-        l0 = np.linalg.cholesky(x0)
+        l0 = np.linalg.cholesky(pairwise_start(blocks, obs, p))
         l0[np.diag_indices(p)] = np.log(np.diag(l0))
         theta0 = l0[np.tril_indices(p)]
         res = sopt.minimize(masked_cost_grad, theta0, args=(p, blocks, obs, w), jac=True, method="L-BFGS-B",
@@ -192,15 +197,7 @@ def masked_rare_cases():
             blocks.append(c[np.ix_(o, o)])
             obs.append(o)
         w = np.ones(n) / n
-        s = np.zeros((p, p))
-        cnt = np.zeros((p, p))
-        for c, o in zip(blocks, obs):
-            s[np.ix_(o, o)] += c
-            cnt[np.ix_(o, o)] += 1
-        x0 = s / cnt
-        ev, u = np.linalg.eigh(x0)
-        x0 = (u * np.maximum(ev, 1e-3 * np.trace(x0) / p)) @ u.T
-        l0 = np.linalg.cholesky(x0)
+        l0 = np.linalg.cholesky(pairwise_start(blocks, obs, p))
         l0[np.diag_indices(p)] = np.log(np.diag(l0))
         # Cost-based stopping would end ~1e-7 from the optimum along the
         # rare channel's flat direction (sqrt(eps·F / curvature)); ftol = 0
