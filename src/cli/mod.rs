@@ -5,6 +5,7 @@
 //! (0 ok, 1 output failure, 2 usage, 3 invalid input, 4 numerical failure).
 
 mod compare;
+mod decode;
 mod errors;
 mod extract;
 mod mean;
@@ -77,6 +78,11 @@ enum Command {
     /// Run every scheme on the same trials, rank them with evidence, and
     /// report each channel's contribution.
     Compare(compare::CompareArgs),
+    /// Train a masked minimum-distance-to-mean decoder (one mean per class),
+    /// with cross-validation.
+    Train(decode::TrainArgs),
+    /// Classify trials with a model written by `train`.
+    Classify(decode::ClassifyArgs),
     /// Whiten every trial by its session's mean (masks kept), so sessions
     /// can be pooled.
     Recentre(recentre::RecentreArgs),
@@ -130,6 +136,8 @@ pub fn run() -> i32 {
         Command::Mean(args) => mean::run(args),
         Command::Compare(args) => compare::run(args),
         Command::Recentre(args) => recentre::run(args),
+        Command::Train(args) => decode::train(args),
+        Command::Classify(args) => decode::classify(args),
         Command::Report(args) => report::run(args),
         Command::Schemes => {
             for s in lacuna::all_schemes() {

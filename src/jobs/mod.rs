@@ -10,12 +10,14 @@ pub use extract::{ExtractJob, ExtractRun};
 pub use mean::{MeanJob, MeanRun};
 pub mod compare;
 pub mod comparison;
+pub mod decoder;
 pub mod extraction_record;
 pub mod grouped;
 pub mod recentre;
 
 pub use compare::CompareJob;
 pub use comparison::Comparison;
+pub use decoder::{Model, TrainJob};
 pub use extraction_record::ExtractionRecord;
 pub use grouped::{GrandWeighting, GroupBy, GroupedMeanJob, GroupedMeans};
 pub use recentre::{RecentreJob, Recentred};

@@ -302,8 +302,9 @@ fn seeded_subset(v: &mut Vec<usize>, cap: usize, seed: u64) {
     v.sort_unstable();
 }
 
-/// Trial indices of each fold (shuffled with the seed).
-fn folds(n: usize, k: usize, seed: u64) -> Vec<Vec<usize>> {
+/// Trial indices of each fold: `k` folds of `0..n` (seeded shuffle, then
+/// every k-th index), each sorted.
+pub fn folds(n: usize, k: usize, seed: u64) -> Vec<Vec<usize>> {
     let mut rng = Rng::new(seed);
     let mut idx: Vec<usize> = (0..n).collect();
     for i in (1..n).rev() {

@@ -229,6 +229,32 @@ def masked_rare_cases():
     return {"meta": meta(), "cases": cases}
 
 
+def decoder_cases():
+    """Minimum distance to mean on observed blocks: two class means, trials
+    with masks, the affine-invariant distance of each trial's observed block
+    to each mean's matching sub-block by scipy's generalized symmetric
+    eigensolver, and the nearest class. Own seed."""
+    rng = np.random.default_rng(20261204)
+    p, n = 6, 24
+    means = [random_spd(p, 10.0, rng), random_spd(p, 30.0, rng)]
+    trials, obs, dist, pred = [], [], [], []
+    for i in range(n):
+        m = means[i % 2]
+        ls = np.linalg.cholesky(m)
+        x = ls @ rng.standard_normal((p, 3 * p))
+        c = sym(x @ x.T / (3 * p))
+        lost = set(rng.choice(p, size=rng.integers(0, 3), replace=False).tolist())
+        o = [k for k in range(p) if k not in lost]
+        b = c[np.ix_(o, o)]
+        d = [airm(mk[np.ix_(o, o)], b) for mk in means]
+        trials.append(b.tolist())
+        obs.append(o)
+        dist.append(d)
+        pred.append(int(np.argmin(d)))
+    return {"meta": meta(), "p": p, "means": [m.tolist() for m in means], "observed": obs,
+            "blocks": trials, "distances": dist, "predicted": pred}
+
+
 def max_det_fill(x, free):
     """Maximum-determinant completion by scipy over the free entries
     (Dempster 1972): maximise log det with the pinned entries fixed."""
@@ -301,7 +327,8 @@ def main():
     os.makedirs(OUT, exist_ok=True)
     only = set(sys.argv[1:])  # fixture names to (re)write; all when empty
     for name, fn in [("matrix_functions", matrix_functions), ("karcher", karcher_cases), ("masked", masked_cases),
-                     ("masked_free", masked_free_cases), ("masked_rare", masked_rare_cases)]:
+                     ("masked_free", masked_free_cases), ("masked_rare", masked_rare_cases),
+                     ("decoder", decoder_cases)]:
         if only and name not in only:
             continue
         with open(os.path.join(OUT, name + ".json"), "w") as f:
