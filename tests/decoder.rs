@@ -17,6 +17,7 @@ fn model_of(channels: Vec<String>, means: &[lacuna::Mat]) -> Model {
         caution: String::new(),
         channels,
         scheme: "given".into(),
+        recentred: false,
         classes: (0..means.len()).map(|k| format!("c{k}")).collect(),
         means: means
             .iter()
@@ -158,7 +159,26 @@ fn the_demo_is_decoded_well_above_chance() {
         assert!(acc >= chance + 0.3, "{extra:?}: {acc} vs chance {chance}");
         assert_eq!(m["model_version"], MODEL_VERSION);
         assert!(m["caution"].as_str().unwrap().contains("clinical"));
+        assert_eq!(m["recentred"], !extra.is_empty());
     }
+    // The last model was trained on re-centred sessions: classify re-centres
+    // the data the same way (sessions from --labels) before deciding.
+    let (code, o, e) = lacuna(&[
+        "classify",
+        "--model",
+        s(&model),
+        "--covs",
+        &demo("covs.npy"),
+        "--mask",
+        &demo("mask.csv"),
+        "--labels",
+        &demo("labels.csv"),
+        "--out",
+        s(&d.path("recentred.csv")),
+    ]);
+    assert_eq!(code, 0, "{o}{e}");
+    assert!(o.contains("each session was re-centred first"), "{o}");
+    assert!(o.contains("accuracy against"), "{o}");
     let pred = d.path("pred.csv");
     let (code, o, e) = lacuna(&[
         "classify",

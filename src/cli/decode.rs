@@ -104,7 +104,8 @@ pub fn train(a: TrainArgs) -> Result<i32> {
         .run(&set)?
         .set;
     }
-    let model = job.run(&set)?;
+    let mut model = job.run(&set)?;
+    model.recentred = a.recentre;
     let json = serde_json::to_string_pretty(&model).unwrap_or_default();
     lacuna::output::write_outputs(None, vec![(a.out.clone(), json.into_bytes())])?;
     if !a.quiet {
@@ -175,7 +176,8 @@ pub struct ClassifyArgs {
     /// distance to every class mean.
     #[arg(long, value_name = "PREDICTIONS.csv")]
     out: PathBuf,
-    /// True labels, when known: the accuracy is printed.
+    /// True labels, when known: the accuracy is printed. Its `session`
+    /// column tells a model trained with --recentre how to re-centre.
     #[arg(long, value_name = "LABELS.csv")]
     labels: Option<PathBuf>,
     /// Print no summary.
@@ -202,7 +204,28 @@ pub fn classify(a: ClassifyArgs) -> Result<i32> {
         message: e.to_string(),
     })?;
     let set = load_trial_set(&a.covs, a.mask.as_deref(), None)?;
-    let set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
+    let mut set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
+    let labels = match &a.labels {
+        Some(path) => {
+            let (l, s) = lacuna::trials::io::read_labels(path, set.len())?;
+            set.sessions = s;
+            Some(l)
+        }
+        None => None,
+    };
+    // A model trained on re-centred sessions sees data re-centred the same
+    // way: each session (or all trials, without sessions) at its own mean.
+    if model.recentred {
+        set = RecentreJob {
+            mean: MeanJob {
+                scheme: model.scheme.clone(),
+                drop_unobserved: true,
+                ..MeanJob::default()
+            },
+        }
+        .run(&set)?
+        .set;
+    }
     let predictions = model.predict(&set)?;
     let mut header = vec!["trial".to_string(), "class".to_string()];
     header.extend(model.classes.iter().map(|c| format!("distance to {c}")));
@@ -221,8 +244,22 @@ pub fn classify(a: ClassifyArgs) -> Result<i32> {
             model.classes.len(),
             a.out.display()
         );
-        if let Some(path) = &a.labels {
-            let (labels, _) = lacuna::trials::io::read_labels(path, set.len())?;
+        if model.recentred {
+            println!(
+                "  the model was trained on re-centred sessions: {} re-centred first, {}",
+                if set.sessions.is_some() {
+                    "each session was"
+                } else {
+                    "all trials were"
+                },
+                if set.sessions.is_some() {
+                    "by its own mean"
+                } else {
+                    "as one session (give --labels with a session column to re-centre per session)"
+                }
+            );
+        }
+        if let (Some(path), Some(labels)) = (&a.labels, &labels) {
             let right = labels
                 .iter()
                 .zip(&predictions)

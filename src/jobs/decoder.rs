@@ -32,6 +32,11 @@ pub struct Model {
     pub classes: Vec<String>,
     /// One p×p mean per class; null where the scheme estimated nothing.
     pub means: Vec<Vec<Vec<Option<f64>>>>,
+    /// The class means live in re-centred coordinates (every session
+    /// whitened by its own mean before training): data to classify must be
+    /// re-centred the same way first.
+    #[serde(default)]
+    pub recentred: bool,
     pub training: TrainingSummary,
 }
 
@@ -258,6 +263,7 @@ impl TrainJob {
             scheme: self.mean.scheme.clone(),
             classes,
             means: means.iter().map(rows_of).collect(),
+            recentred: false,
             training: TrainingSummary {
                 trials,
                 converged,
@@ -330,6 +336,7 @@ impl TrainJob {
             scheme: self.mean.scheme.clone(),
             classes: classes.to_vec(),
             means: means.iter().map(rows_of).collect(),
+            recentred: false,
             training: TrainingSummary {
                 trials: Vec::new(),
                 converged: Vec::new(),
