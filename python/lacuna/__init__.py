@@ -94,6 +94,7 @@ def mean(
     regularize: Optional[str] = None,
     drop_unobserved: bool = False,
     precondition: bool = True,
+    huber: float = 1.5,
     unit: Optional[str] = None,
 ) -> Tuple[np.ndarray, Dict[str, Any]]:
     """The mean of a stack of covariance matrices whose trials lost channels.
@@ -140,6 +141,9 @@ def mean(
         Precondition airm-observed's solver when channels are covered
         unequally (default); False runs plain L-BFGS (same mean, usually
         more iterations).
+    huber : float
+        Threshold of ``"airm-observed-huber"`` as a multiple of the median
+        distance of the trials to the masked mean (default 1.5).
     unit : str, optional
         Physical unit of the data (e.g. ``"uV"``); the report gives
         covariances in its square.
@@ -168,7 +172,7 @@ def mean(
         scheme=scheme, tol=tol, max_iter=max_iter, init=init, starts=starts, seed=seed,
         loading=loading, shrinkage=shrinkage, samples=samples, rank=rank, positions=positions,
         correct_scale=correct_scale, effective_samples=effective_samples, regularize=regularize,
-        drop_unobserved=drop_unobserved, precondition=precondition, unit=unit,
+        drop_unobserved=drop_unobserved, precondition=precondition, huber=huber, unit=unit,
     )
     names = _names(channels, s)
     result, report = _lacuna.mean(s, m, w, names, json.dumps(job, allow_nan=False))
@@ -193,6 +197,7 @@ def _mean_job(
     regularize: Optional[str] = None,
     drop_unobserved: bool = False,
     precondition: bool = True,
+    huber: float = 1.5,
     unit: Optional[str] = None,
 ) -> Dict[str, Any]:
     """The settings of the library's MeanJob, checked for signs and finiteness."""
@@ -215,12 +220,13 @@ def _mean_job(
         "regularize": regularize,
         "drop_unobserved": bool(drop_unobserved),
         "no_precondition": not precondition,
+        "huber": float(huber),
         "unit": unit,
     }
     for key in ("max_iter", "starts", "samples", "rank"):
         if job[key] is not None and job[key] < 0:
             raise LacunaError(f"{key} must not be negative, got {job[key]}")
-    for key in ("tol", "loading", "shrinkage", "effective_samples"):
+    for key in ("tol", "loading", "shrinkage", "effective_samples", "huber"):
         if job[key] is not None and not np.isfinite(job[key]):
             raise LacunaError(f"{key} must be a finite number, got {job[key]}")
     return job

@@ -140,6 +140,11 @@ pub struct MeanArgs {
     /// (`equal`).
     #[arg(long, default_value = "trials", value_name = "trials|equal")]
     grand: String,
+    /// Threshold of --scheme airm-observed-huber, as a multiple of the
+    /// median distance of the trials to the masked mean: trials within it
+    /// count fully, farther ones with weight threshold/distance.
+    #[arg(long, default_value_t = 1.5, value_name = "K")]
+    huber: f64,
     /// Print no summary and no progress (errors and warnings still go to stderr).
     #[arg(long)]
     quiet: bool,
@@ -184,6 +189,7 @@ fn job_of(a: &MeanArgs) -> MeanJob {
         regularize: a.regularize.clone(),
         drop_unobserved: a.drop_unobserved,
         no_precondition: a.no_precondition,
+        huber: a.huber,
         unit: a.unit.clone(),
     }
 }

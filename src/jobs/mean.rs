@@ -67,6 +67,9 @@ pub struct MeanJob {
     /// Plain L-BFGS for airm-observed, without the preconditioner that
     /// serves unequally covered channels.
     pub no_precondition: bool,
+    /// Threshold of airm-observed-huber, as a multiple of the median
+    /// distance to the squared-distance masked mean.
+    pub huber: f64,
     /// Physical unit of the data (e.g. uV or µV), recorded in the report.
     pub unit: Option<String>,
 }
@@ -90,6 +93,7 @@ impl Default for MeanJob {
             regularize: None,
             drop_unobserved: false,
             no_precondition: false,
+            huber: 1.5,
             unit: None,
         }
     }
@@ -195,6 +199,7 @@ impl MeanJob {
             positions: self.positions.clone().map(Arc::new),
             warm_start: None,
             precondition: !self.no_precondition,
+            huber: self.huber,
             scale_correction: if self.correct_scale {
                 Some(degrees_of_freedom(self.samples, self.effective_samples)?)
             } else {

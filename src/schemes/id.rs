@@ -11,6 +11,10 @@ use super::AveragingScheme;
 #[serde(rename_all = "kebab-case")]
 pub enum SchemeId {
     AirmObserved,
+    #[serde(rename = "airm-observed-median")]
+    ObservedMedian,
+    #[serde(rename = "airm-observed-huber")]
+    ObservedHuber,
     CompleteTrials,
     AvailableCase,
     DiagonalLoading,
@@ -28,8 +32,10 @@ pub enum SchemeId {
 
 impl SchemeId {
     /// All ids, in the order they are listed to users.
-    pub const ALL: [SchemeId; 13] = [
+    pub const ALL: [SchemeId; 15] = [
         SchemeId::AirmObserved,
+        SchemeId::ObservedMedian,
+        SchemeId::ObservedHuber,
         SchemeId::CompleteTrials,
         SchemeId::AvailableCase,
         SchemeId::DiagonalLoading,
@@ -48,6 +54,8 @@ impl SchemeId {
     pub fn name(self) -> &'static str {
         match self {
             SchemeId::AirmObserved => "airm-observed",
+            SchemeId::ObservedMedian => "airm-observed-median",
+            SchemeId::ObservedHuber => "airm-observed-huber",
             SchemeId::CompleteTrials => "complete-trials",
             SchemeId::AvailableCase => "available-case",
             SchemeId::DiagonalLoading => "diagonal-loading",
@@ -73,6 +81,8 @@ impl SchemeId {
         use super::*;
         match self {
             SchemeId::AirmObserved => Box::new(AirmObserved),
+            SchemeId::ObservedMedian => Box::new(ObservedMedian),
+            SchemeId::ObservedHuber => Box::new(ObservedHuber),
             SchemeId::CompleteTrials => Box::new(CompleteTrials),
             SchemeId::AvailableCase => Box::new(AvailableCase),
             SchemeId::DiagonalLoading => Box::new(DiagonalLoading),
@@ -95,6 +105,13 @@ impl SchemeId {
             SchemeId::GaussianEm => 5000,
             _ => 500,
         }
+    }
+
+    /// Whether `compare` runs it when no `--schemes` are named. The robust
+    /// means solve one masked mean per reweighting step (tens of them):
+    /// asked for by name only.
+    pub fn in_default_comparison(self) -> bool {
+        !matches!(self, SchemeId::ObservedMedian | SchemeId::ObservedHuber)
     }
 }
 

@@ -17,6 +17,7 @@ mod em;
 mod id;
 mod karcher;
 pub mod regularize;
+mod robust;
 mod spherical_spline;
 mod subspace;
 
@@ -29,6 +30,7 @@ pub use common_channels::CommonChannels;
 pub use em::GaussianEm;
 pub use id::SchemeId;
 pub use karcher::Karcher;
+pub use robust::{ObservedHuber, ObservedMedian, observed_distances, outliers};
 pub use spherical_spline::{
     SphericalSpline, spline_g as spherical_spline_g, spline_interpolation_matrix,
 };
@@ -82,6 +84,9 @@ pub struct SchemeOptions {
     /// observed block by `e^{c(k_i, n)}` first, so that the Riemannian mean
     /// estimates the population covariance (src/spd/wishart.rs).
     pub scale_correction: Option<f64>,
+    /// Huber threshold of `airm-observed-huber` as a multiple of the median
+    /// distance of the trials to the squared-distance masked mean.
+    pub huber: f64,
     /// Precondition the masked mean's solver when channels are covered
     /// unequally (docs/masked-mean.md, "Preconditioning"). On by default;
     /// off reproduces the plain L-BFGS run (for checks and benchmarks).
@@ -104,6 +109,7 @@ impl Default for SchemeOptions {
             warm_start: None,
             regularize: None,
             scale_correction: None,
+            huber: 1.5,
             precondition: true,
         }
     }

@@ -53,6 +53,9 @@ pub fn default_candidates(
             continue;
         }
         let id = s.id();
+        if only.is_empty() && !id.in_default_comparison() {
+            continue;
+        }
         // Each scheme stops at its own iteration cap (EM takes many cheap steps).
         let stop = crate::solve::StopRule {
             tol: base.stop.tol,

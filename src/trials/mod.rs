@@ -323,6 +323,31 @@ impl TrialSet {
         &self.weights
     }
 
+    /// Replaces the weights (same rules as [`TrialSet::new`]: one per trial,
+    /// finite, non-negative, not all zero); the blocks are untouched.
+    pub fn set_weights(&mut self, w: Vec<f64>) -> Result<()> {
+        let bad = w.len() != self.trials.len()
+            || w.iter().any(|v| !v.is_finite() || *v < 0.0)
+            || w.iter().all(|&v| v == 0.0);
+        if bad {
+            return Err(LacunaError::InvalidTrials {
+                source_name: "new weights".into(),
+                problems: vec![TrialProblem {
+                    kind: ProblemKind::Other,
+                    trial: None,
+                    channel: None,
+                    message: format!(
+                        "{} weights for {} trials, each finite and non-negative, not all zero",
+                        w.len(),
+                        self.trials.len()
+                    ),
+                }],
+            });
+        }
+        self.weights = w;
+        Ok(())
+    }
+
     /// Weights scaled to sum to one.
     pub fn normalized_weights(&self) -> Vec<f64> {
         // Scale by the largest first, so huge weights cannot overflow the sum.
