@@ -3,7 +3,7 @@
 
 mod common;
 
-use common::{Dir, fixture, lacuna, mat, read_json, s, spd};
+use common::{Dir, demo, fixture, lacuna, lacuna_on_demo, mat, read_json, s, spd};
 use lacuna::jobs::MeanJob;
 use lacuna::jobs::decoder::{MODEL_VERSION, Model, TrainJob, TrainingSummary};
 use lacuna::simulate::rng::Rng;
@@ -121,10 +121,6 @@ fn masked_class_means_decode_no_worse_than_complete_trials() {
     assert!(masked > 0.6, "masked {masked}");
 }
 
-fn demo(f: &str) -> String {
-    format!("{}/demo-data/{f}", env!("CARGO_MANIFEST_DIR"))
-}
-
 // The demo scenario (rest against task): the cross-validated accuracy beats
 // chance (0.5) by at least 0.3, k-fold and leave-one-session-out (can fail).
 #[test]
@@ -135,22 +131,9 @@ fn the_demo_is_decoded_well_above_chance() {
         vec![],
         vec!["--by-session", "--drop-unobserved", "--recentre"],
     ] {
-        let mut args = vec![
-            "train",
-            "--covs",
-            &demo("covs.npy"),
-            "--mask",
-            &demo("mask.csv"),
-            "--labels",
-            &demo("labels.csv"),
-            "--out",
-            s(&model),
-        ]
-        .into_iter()
-        .map(String::from)
-        .collect::<Vec<_>>();
-        args.extend(extra.iter().map(|x| x.to_string()));
-        let (code, o, e) = lacuna(&args.iter().map(String::as_str).collect::<Vec<_>>());
+        let mut args = vec!["--out", s(&model)];
+        args.extend(extra.iter().copied());
+        let (code, o, e) = lacuna_on_demo("train", &args);
         assert_eq!(code, 0, "{o}{e}");
         let m = read_json(&model);
         let cv = &m["training"]["cross_validation"];
@@ -163,19 +146,10 @@ fn the_demo_is_decoded_well_above_chance() {
     }
     // The last model was trained on re-centred sessions: classify re-centres
     // the data the same way (sessions from --labels) before deciding.
-    let (code, o, e) = lacuna(&[
+    let (code, o, e) = lacuna_on_demo(
         "classify",
-        "--model",
-        s(&model),
-        "--covs",
-        &demo("covs.npy"),
-        "--mask",
-        &demo("mask.csv"),
-        "--labels",
-        &demo("labels.csv"),
-        "--out",
-        s(&d.path("recentred.csv")),
-    ]);
+        &["--model", s(&model), "--out", s(&d.path("recentred.csv"))],
+    );
     assert_eq!(code, 0, "{o}{e}");
     assert!(o.contains("each session was re-centred first"), "{o}");
     assert!(o.contains("accuracy against"), "{o}");
@@ -201,20 +175,7 @@ fn the_demo_is_decoded_well_above_chance() {
 fn models_and_data_that_do_not_fit_are_refused() {
     let d = Dir::new("decoder-refusals");
     let model = d.path("model.json");
-    let (code, _, e) = lacuna(&[
-        "train",
-        "--covs",
-        &demo("covs.npy"),
-        "--mask",
-        &demo("mask.csv"),
-        "--labels",
-        &demo("labels.csv"),
-        "--out",
-        s(&model),
-        "--folds",
-        "0",
-        "--quiet",
-    ]);
+    let (code, _, e) = lacuna_on_demo("train", &["--out", s(&model), "--folds", "0", "--quiet"]);
     assert_eq!(code, 0, "{e}");
     let classify = |model: &std::path::Path, mask: &str, out: &std::path::Path| {
         lacuna(&[
@@ -265,19 +226,7 @@ fn models_and_data_that_do_not_fit_are_refused() {
     // The output may not be the model; --folds 1 is not a cross-validation.
     let (code, _, e) = classify(&model, &demo("mask.csv"), &model);
     assert_eq!(code, 2, "{e}");
-    let (code, _, e) = lacuna(&[
-        "train",
-        "--covs",
-        &demo("covs.npy"),
-        "--mask",
-        &demo("mask.csv"),
-        "--labels",
-        &demo("labels.csv"),
-        "--out",
-        s(&d.path("m2.json")),
-        "--folds",
-        "1",
-    ]);
+    let (code, _, e) = lacuna_on_demo("train", &["--out", s(&d.path("m2.json")), "--folds", "1"]);
     assert_eq!(code, 2, "{e}");
     // One class only: nothing to decode.
     let n = 240;

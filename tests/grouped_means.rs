@@ -5,7 +5,7 @@
 
 mod common;
 
-use common::{Dir, lacuna, read_json, s, spd};
+use common::{Dir, demo, lacuna, lacuna_on_demo, read_json, s, spd};
 use lacuna::jobs::{GrandWeighting, GroupBy, GroupedMeanJob, MeanJob};
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, sample_covariance};
@@ -189,27 +189,11 @@ fn hostile_group_names_give_safe_distinct_files() {
     assert_eq!(lower.len(), stems.len(), "{stems:?}");
 }
 
-fn demo(f: &str) -> String {
-    format!("{}/demo-data/{f}", env!("CARGO_MANIFEST_DIR"))
-}
-
 #[test]
 fn per_label_means_of_the_demo_from_the_command_line() {
     let d = Dir::new("grouped-demo");
     let out = d.path("by-label");
-    let (code, stdout, stderr) = lacuna(&[
-        "mean",
-        "--covs",
-        &demo("covs.npy"),
-        "--mask",
-        &demo("mask.csv"),
-        "--labels",
-        &demo("labels.csv"),
-        "--by",
-        "label",
-        "--out",
-        s(&out),
-    ]);
+    let (code, stdout, stderr) = lacuna_on_demo("mean", &["--by", "label", "--out", s(&out)]);
     assert_eq!(code, 0, "{stdout}{stderr}");
     assert!(
         stdout.contains("rest") && stdout.contains("task"),

@@ -2,7 +2,7 @@
 
 mod common;
 
-use common::{Dir, lacuna, read_json, s, spd};
+use common::{Dir, demo, lacuna, lacuna_on_demo, read_json, s, spd};
 use lacuna::SchemeOptions;
 use lacuna::jobs::{MeanJob, RecentreJob};
 use lacuna::schemes::{AirmObserved, AveragingScheme, Karcher};
@@ -156,31 +156,11 @@ fn recentring_is_congruence_invariant() {
     assert!((d1 - d2).abs() < 1e-8);
 }
 
-fn demo(f: &str) -> String {
-    format!("{}/demo-data/{f}", env!("CARGO_MANIFEST_DIR"))
-}
-
 #[test]
 fn recentre_the_demo_from_the_command_line() {
     let d = Dir::new("recentre-demo");
     let out = d.path("centred");
-    let args = |extra: &[&str]| {
-        let mut v = vec![
-            "recentre".to_string(),
-            "--covs".into(),
-            demo("covs.npy"),
-            "--mask".into(),
-            demo("mask.csv"),
-            "--labels".into(),
-            demo("labels.csv"),
-        ];
-        v.extend(extra.iter().map(|x| x.to_string()));
-        v
-    };
-    let run = |extra: &[&str]| {
-        let v = args(extra);
-        lacuna(&v.iter().map(String::as_str).collect::<Vec<_>>())
-    };
+    let run = |extra: &[&str]| lacuna_on_demo("recentre", extra);
     // The demo loses one electrode for a whole session: refused, naming it.
     let (code, _, e) = run(&["--out", s(&out)]);
     assert_eq!(code, 3, "{e}");

@@ -135,3 +135,19 @@ pub fn write_masked_set(
 pub fn read_json(path: impl AsRef<std::path::Path>) -> serde_json::Value {
     serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
 }
+
+/// A file of the committed covariance-level demo study (demo-data/).
+pub fn demo(f: &str) -> String {
+    format!("{}/demo-data/{f}", env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Runs `lacuna <command> --covs demo/covs.npy --mask demo/mask.csv
+/// --labels demo/labels.csv <extra…>`.
+pub fn lacuna_on_demo(command: &str, extra: &[&str]) -> (i32, String, String) {
+    let (covs, mask, labels) = (demo("covs.npy"), demo("mask.csv"), demo("labels.csv"));
+    let mut args = vec![
+        command, "--covs", &covs, "--mask", &mask, "--labels", &labels,
+    ];
+    args.extend_from_slice(extra);
+    lacuna(&args)
+}
