@@ -9,6 +9,7 @@ mod decode;
 mod errors;
 mod extract;
 mod mean;
+mod merge;
 mod progress;
 mod recentre;
 mod report;
@@ -83,6 +84,9 @@ enum Command {
     Train(decode::TrainArgs),
     /// Classify trials with a model written by `train`.
     Classify(decode::ClassifyArgs),
+    /// Pool trial-set folders recorded with different electrode lists
+    /// (channels matched by name, the union kept).
+    Merge(merge::MergeArgs),
     /// Whiten every trial by its session's mean (masks kept), so sessions
     /// can be pooled.
     Recentre(recentre::RecentreArgs),
@@ -136,6 +140,7 @@ pub fn run() -> i32 {
         Command::Mean(args) => mean::run(args),
         Command::Compare(args) => compare::run(args),
         Command::Recentre(args) => recentre::run(args),
+        Command::Merge(args) => merge::run(args),
         Command::Train(args) => decode::train(args),
         Command::Classify(args) => decode::classify(args),
         Command::Report(args) => report::run(args),

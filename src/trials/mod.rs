@@ -14,6 +14,7 @@
 //! need full rank say so ([`crate::schemes::AveragingScheme::accepts_rank_deficient`]).
 
 pub mod io;
+pub mod merge;
 pub mod npy;
 
 use crate::error::{LacunaError, ProblemKind, Result, TrialProblem};
