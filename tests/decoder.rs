@@ -228,6 +228,11 @@ fn models_and_data_that_do_not_fit_are_refused() {
     assert_eq!(code, 2, "{e}");
     let (code, _, e) = lacuna_on_demo("train", &["--out", s(&d.path("m2.json")), "--folds", "1"]);
     assert_eq!(code, 2, "{e}");
+    for v in ["1000000", "-3", "x"] {
+        let (code, _, e) = lacuna_on_demo("train", &["--out", s(&d.path("m4.json")), "--folds", v]);
+        assert_eq!(code, 2, "--folds {v}: {e}");
+    }
+    assert!(!d.path("m4.json").exists());
     // One class only: nothing to decode.
     let n = 240;
     let one = d.write(

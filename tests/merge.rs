@@ -190,5 +190,8 @@ fn merge_from_the_command_line() {
     assert_ne!(code, 0, "{e}");
     let (code, _, e) = lacuna(&["merge", s(&a), "--out", s(&d.path("x"))]);
     assert_eq!(code, 2, "{e}");
+    let (code, _, e) = lacuna(&["merge", s(&a), s(&a), "--out", s(&d.path("x"))]);
+    assert_eq!(code, 2, "{e}");
+    assert!(e.contains("twice"), "{e}");
     assert!(!d.path("x").exists());
 }

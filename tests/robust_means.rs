@@ -141,3 +141,29 @@ fn a_symmetric_configuration_has_its_centre_as_median() {
         assert!(dist < 1e-8, "{}: {dist}", s.name());
     }
 }
+
+// Hostile values of --huber are refused before any work, naming the flag.
+#[test]
+fn hostile_huber_thresholds_are_refused() {
+    let d = common::Dir::new("huber-hostile");
+    for v in ["NaN", "inf", "-1", "0", "1e308"] {
+        let out = d.path("m.npy");
+        let (covs, mask) = (common::demo("covs.npy"), common::demo("mask.csv"));
+        let (code, _, e) = common::lacuna(&[
+            "mean",
+            "--covs",
+            &covs,
+            "--mask",
+            &mask,
+            "--scheme",
+            "airm-observed-huber",
+            "--huber",
+            v,
+            "--out",
+            common::s(&out),
+        ]);
+        assert_eq!(code, 2, "{v}: {e}");
+        assert!(e.contains("--huber"), "{v}: {e}");
+        assert!(!out.exists());
+    }
+}

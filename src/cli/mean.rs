@@ -143,7 +143,12 @@ pub struct MeanArgs {
     /// Threshold of --scheme airm-observed-huber, as a multiple of the
     /// median distance of the trials to the masked mean: trials within it
     /// count fully, farther ones with weight threshold/distance.
-    #[arg(long, default_value_t = 1.5, value_name = "K")]
+    #[arg(
+        long,
+        default_value_t = 1.5,
+        value_name = "K",
+        allow_negative_numbers = true
+    )]
     huber: f64,
     /// Print no summary and no progress (errors and warnings still go to stderr).
     #[arg(long)]

@@ -33,6 +33,18 @@ pub struct MergeArgs {
 }
 
 pub fn run(a: MergeArgs) -> Result<i32> {
+    // The same folder twice would count its trials twice.
+    let mut seen: Vec<PathBuf> = Vec::new();
+    for dir in &a.sets {
+        let key = std::fs::canonicalize(dir).unwrap_or_else(|_| dir.clone());
+        if seen.contains(&key) {
+            return Err(lacuna::LacunaError::InvalidOption(format!(
+                "{} is given twice: each trial set may be merged once",
+                dir.display()
+            )));
+        }
+        seen.push(key);
+    }
     let mut files: Vec<(String, PathBuf)> = Vec::new();
     for dir in &a.sets {
         for f in ["covs.npy", "mask.csv", "labels.csv"] {
