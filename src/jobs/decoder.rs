@@ -272,7 +272,9 @@ impl TrainJob {
         })
     }
 
-    /// One mean per class on the trials `idx` of `set` (all when None).
+    /// One mean per class on all trials of `set`: the means on the set's
+    /// channels (NaN where a class left one out), trials and convergence
+    /// per class.
     #[allow(clippy::type_complexity)]
     fn fit(
         &self,
@@ -291,18 +293,7 @@ impl TrainJob {
                     source: Box::new(e),
                 }
             })?;
-            // Back on the full channel list (NaN for channels left out).
-            let published = run.result.published();
-            let p = set.n_channels();
-            let pos: Vec<Option<usize>> = set
-                .channels()
-                .iter()
-                .map(|ch| run.set.channels().iter().position(|d| d == ch))
-                .collect();
-            means.push(Mat::from_fn(p, p, |a, b| match (pos[a], pos[b]) {
-                (Some(i), Some(j)) => published[(i, j)],
-                _ => f64::NAN,
-            }));
+            means.push(super::grouped::embed(&run, set.channels()));
             counts.push(idx.len());
             converged.push(run.converged());
         }

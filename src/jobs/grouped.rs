@@ -306,7 +306,7 @@ fn group_keys(set: &TrialSet, by: GroupBy) -> Result<Vec<(Option<String>, Option
 
 /// A group's mean on the input's channels: NaN for channels the group's run
 /// dropped (never observed there) or did not estimate.
-fn embed(run: &MeanRun, channels: &[String]) -> Mat {
+pub(crate) fn embed(run: &MeanRun, channels: &[String]) -> Mat {
     let published = run.result.published();
     let at: Vec<Option<usize>> = channels
         .iter()
