@@ -162,19 +162,7 @@ impl Model {
             .enumerate()
             .map(|(i, t)| {
                 // The trial in the model's channel order.
-                let mut order: Vec<(usize, usize)> = t
-                    .observed
-                    .iter()
-                    .enumerate()
-                    .map(|(r, &c)| (at[c], r))
-                    .collect();
-                order.sort_unstable();
-                let trial = crate::trials::Trial {
-                    observed: order.iter().map(|&(c, _)| c).collect(),
-                    block: Mat::from_fn(order.len(), order.len(), |a, b| {
-                        t.block[(order[a].1, order[b].1)]
-                    }),
-                };
+                let trial = t.remapped(&at);
                 let distances: Vec<f64> = means
                     .iter()
                     .map(|(m, est)| match matching_blocks(m, Some(est), &trial) {

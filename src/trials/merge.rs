@@ -6,7 +6,7 @@
 //! as the session, so the sets stay apart for `--by session`).
 
 use crate::error::{LacunaError, Result};
-use crate::trials::{Trial, TrialSet};
+use crate::trials::TrialSet;
 
 /// Merges `sets` (each with a name for messages and sessions) over the
 /// union of their channels, in order of first appearance.
@@ -43,19 +43,7 @@ pub fn merge_by_name(sets: &[(String, TrialSet)]) -> Result<TrialSet> {
             .collect();
         for (i, t) in s.trials().iter().enumerate() {
             // Observed channels in the union's order, the block permuted to match.
-            let mut order: Vec<(usize, usize)> = t
-                .observed
-                .iter()
-                .enumerate()
-                .map(|(r, &c)| (at[c], r))
-                .collect();
-            order.sort_unstable();
-            trials.push(Trial {
-                observed: order.iter().map(|&(c, _)| c).collect(),
-                block: crate::spd::Mat::from_fn(order.len(), order.len(), |a, b| {
-                    t.block[(order[a].1, order[b].1)]
-                }),
-            });
+            trials.push(t.remapped(&at));
             weights.push(s.weights()[i]);
             if let Some(l) = &s.labels {
                 labels.push(l[i].clone());

@@ -31,6 +31,24 @@ pub struct Trial {
 }
 
 impl Trial {
+    /// The same trial in another channel numbering: channel `c` becomes
+    /// `at[c]`; the observed list is sorted again and the block permuted to match.
+    pub fn remapped(&self, at: &[usize]) -> Trial {
+        let mut order: Vec<(usize, usize)> = self
+            .observed
+            .iter()
+            .enumerate()
+            .map(|(r, &c)| (at[c], r))
+            .collect();
+        order.sort_unstable();
+        Trial {
+            observed: order.iter().map(|&(c, _)| c).collect(),
+            block: Mat::from_fn(order.len(), order.len(), |a, b| {
+                self.block[(order[a].1, order[b].1)]
+            }),
+        }
+    }
+
     /// Takes trial `i` from a C-order `(N, p, p)` stack and its mask row.
     pub fn from_stack_row(stack: &[f64], p: usize, i: usize, observed: Vec<usize>) -> Trial {
         let base = i * p * p;
