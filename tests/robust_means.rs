@@ -167,3 +167,94 @@ fn hostile_huber_thresholds_are_refused() {
         assert!(!out.exists());
     }
 }
+
+// The flags reach the user: `mean --report` lists the flagged trials with
+// their distances and z-scores, and `compare --html` shows them in an
+// "Outlier trials" table. Can fail: the artefact trials (every fifth) must
+// be the ones listed, the same as the library's `outliers` on the same data.
+#[test]
+fn outlier_flags_reach_the_report_and_the_page() {
+    use common::{Dir, lacuna, read_json, s};
+    let d = Dir::new("robust-flags");
+    let dirty = trials(true);
+    let covs = d.write(
+        "covs.npy",
+        &lacuna::trials::io::encode_stack_with_nan(&dirty),
+    );
+    let mask = d.write("mask.npy", &lacuna::trials::io::encode_mask(&dirty));
+    let expected: Vec<usize> = {
+        let m = mean_of(&ObservedMedian, &dirty);
+        outliers(&observed_distances(&dirty, &m))
+            .into_iter()
+            .map(|(i, _)| i)
+            .collect()
+    };
+    assert!(expected.iter().filter(|&&i| i % 5 == 0).count() >= 18);
+
+    let report = d.path("median.json");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--scheme",
+        "airm-observed-median",
+        "--out",
+        s(&d.path("median.npy")),
+        "--report",
+        s(&report),
+        "--quiet",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let r = read_json(&report);
+    let listed: Vec<usize> = r["outliers"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|o| o["trial"].as_u64().unwrap() as usize)
+        .collect();
+    assert_eq!(listed, expected);
+    for o in r["outliers"].as_array().unwrap() {
+        assert!(o["z"].as_f64().unwrap() > 3.5);
+        assert!(o["distance"].as_f64().unwrap() > 0.0);
+    }
+
+    let out = d.path("cmp");
+    let html = d.path("page.html");
+    let (code, _, err) = lacuna(&[
+        "compare",
+        "--covs",
+        s(&covs),
+        "--mask",
+        s(&mask),
+        "--schemes",
+        "airm-observed,airm-observed-median",
+        "--repeats",
+        "2",
+        "--bootstrap",
+        "0",
+        "--out",
+        s(&out),
+        "--html",
+        s(&html),
+        "--quiet",
+    ]);
+    assert_eq!(code, 0, "{err}");
+    let c = read_json(out.join("compare.json"));
+    let rows = c["schemes"].as_array().unwrap();
+    let median = rows
+        .iter()
+        .find(|r| r.to_string().contains("\"airm-observed-median\""))
+        .unwrap();
+    let in_compare = median.to_string();
+    for i in &expected {
+        assert!(in_compare.contains(&format!("\"trial\":{i},")), "{i}");
+    }
+    let page = std::fs::read_to_string(&html).unwrap();
+    assert!(page.contains("Outlier trials"));
+    assert!(page.contains(&format!("{} of 100 trials flagged", expected.len())));
+    for i in &expected {
+        assert!(page.contains(&format!("<tr><td>{i}</td>")), "trial {i} not on the page");
+    }
+}

@@ -457,6 +457,7 @@ fn scheme_mean(set: &TrialSet, label: &str, m: &MeanResult, seconds: f64) -> Sch
         dispersion,
         estimated_channels: est.len(),
         notes: m.diagnostics.notes.clone(),
+        outliers: m.diagnostics.outliers.clone(),
         mean_file: format!("means/{}.npy", file_stem(label)),
         mean: (0..p)
             .map(|i| {

@@ -102,6 +102,9 @@ pub struct SchemeMean {
     pub dispersion: f64,
     pub estimated_channels: usize,
     pub notes: Vec<String>,
+    /// Trials flagged as far from this mean (robust schemes only).
+    #[serde(default)]
+    pub outliers: Vec<crate::schemes::OutlierTrial>,
     /// Relative path of the mean's NPY file in the output folder.
     pub mean_file: String,
     /// The mean, null outside the estimated channels.

@@ -81,6 +81,59 @@ fn covariance_unit<'a>(
         .or_else(|| epochs.and_then(|e| e.covariance_unit.as_deref()))
 }
 
+/// Rows shown per scheme in the outlier table; the JSON lists them all.
+const OUTLIER_ROWS: usize = 40;
+
+/// The robust schemes' flagged trials, one table per scheme (None when no
+/// robust scheme ran).
+fn outlier_section(compare: &Comparison) -> Option<String> {
+    let robust: Vec<&SchemeMean> = compare
+        .schemes
+        .iter()
+        .filter_map(|s| s.ok())
+        .filter(|s| {
+            s.scheme.starts_with("airm-observed-median")
+                || s.scheme.starts_with("airm-observed-huber")
+        })
+        .collect();
+    if robust.is_empty() {
+        return None;
+    }
+    let mut sec = String::from(
+        "<p class=\"note\">A trial is flagged when the modified z-score of its distance to the robust mean, 0.6745 (δ − median δ) / MAD, exceeds 3.5. Flagged trials weigh less in that mean; look at them (artefacts, a loose electrode, a different condition) before trusting any mean that gives them full weight. Trial numbers count from 0 in the order of the stack.</p>",
+    );
+    for s in robust {
+        if s.outliers.is_empty() {
+            sec.push_str(&format!(
+                "<p><strong>{}</strong>: no trial flagged.</p>",
+                escape(&s.scheme)
+            ));
+            continue;
+        }
+        sec.push_str(&format!(
+            "<p><strong>{}</strong>: {} of {} trials flagged{}.</p><table><tr><th>trial</th><th>distance to the mean</th><th>modified z</th></tr>",
+            escape(&s.scheme),
+            s.outliers.len(),
+            compare.trials,
+            if s.outliers.len() > OUTLIER_ROWS {
+                format!(" (the {OUTLIER_ROWS} farthest shown; compare.json lists all)")
+            } else {
+                String::new()
+            }
+        ));
+        let mut rows = s.outliers.clone();
+        rows.sort_by(|a, b| b.z.total_cmp(&a.z).then(a.trial.cmp(&b.trial)));
+        for o in rows.iter().take(OUTLIER_ROWS) {
+            sec.push_str(&format!(
+                "<tr><td>{}</td><td>{:.3}</td><td>{:.1}</td></tr>",
+                o.trial, o.distance, o.z
+            ));
+        }
+        sec.push_str("</table>");
+    }
+    Some(sec)
+}
+
 /// Renders the report of a comparison (and, optionally, its extraction).
 pub fn render(compare: &Comparison, epochs: Option<&ExtractionRecord>) -> String {
     let names = &compare.channels;
@@ -153,6 +206,11 @@ pub fn render(compare: &Comparison, epochs: Option<&ExtractionRecord>) -> String
             ranks.full_rank
         ));
         body.push_str(&section("Rank-deficient trials", &t));
+    }
+
+    // Outlier trials flagged by the robust schemes.
+    if let Some(sec) = outlier_section(compare) {
+        body.push_str(&section("Outlier trials", &sec));
     }
 
     // Dropout and coverage.

@@ -50,6 +50,8 @@ pub struct MeanReport<'a> {
     pub covariance_unit: Option<String>,
     pub regularizer: Option<crate::schemes::regularize::Regularizer>,
     pub boundary: Option<&'a crate::schemes::VanishingDirection>,
+    /// Trials flagged as far from the mean (robust schemes only).
+    pub outliers: &'a [crate::schemes::OutlierTrial],
     pub notes: &'a [String],
     pub advice: Vec<String>,
     pub trace: &'a [IterRecord],
@@ -121,6 +123,7 @@ impl<'a> MeanReport<'a> {
             covariance_unit: None,
             regularizer: None,
             boundary: d.boundary.as_ref(),
+            outliers: &d.outliers,
             notes: &d.notes,
             advice,
             trace: &d.trace,

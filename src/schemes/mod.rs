@@ -30,7 +30,7 @@ pub use common_channels::CommonChannels;
 pub use em::GaussianEm;
 pub use id::SchemeId;
 pub use karcher::Karcher;
-pub use robust::{ObservedHuber, ObservedMedian, observed_distances, outliers};
+pub use robust::{ObservedHuber, ObservedMedian, observed_distances, outlier_trials, outliers};
 pub use spherical_spline::{
     SphericalSpline, spline_g as spherical_spline_g, spline_interpolation_matrix,
 };
@@ -194,6 +194,20 @@ pub struct Diagnostics {
     /// Set when the iterates ran to the boundary of the SPD cone (the cost
     /// has no positive definite minimiser): the direction that vanishes.
     pub boundary: Option<VanishingDirection>,
+    /// Trials whose distance to this mean is an outlier (robust schemes
+    /// only; empty elsewhere).
+    pub outliers: Vec<OutlierTrial>,
+}
+
+/// A trial far from the mean by the modified z-score of its distance.
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct OutlierTrial {
+    /// Position in the trial set (0-based, the order of the stack).
+    pub trial: usize,
+    /// Affine-invariant distance of its observed block to the mean's.
+    pub distance: f64,
+    /// Modified z-score 0.6745 (δ − median δ) / MAD.
+    pub z: f64,
 }
 
 /// The direction along which a run to the boundary makes the mean singular.
@@ -246,6 +260,7 @@ impl Diagnostics {
             starts_agree: None,
             estimated_channels: None,
             boundary: None,
+            outliers: Vec::new(),
         }
     }
 

@@ -71,6 +71,18 @@ pub fn outliers(distances: &[f64]) -> Vec<(usize, f64)> {
         .collect()
 }
 
+/// [`outliers`] with each trial's distance, as the reports list them.
+pub fn outlier_trials(distances: &[f64]) -> Vec<super::OutlierTrial> {
+    outliers(distances)
+        .into_iter()
+        .map(|(trial, z)| super::OutlierTrial {
+            trial,
+            distance: distances[trial],
+            z,
+        })
+        .collect()
+}
+
 fn robust(loss: Loss, set: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
     let plain = SchemeOptions {
         observer: None,
@@ -162,12 +174,12 @@ fn robust(loss: Loss, set: &TrialSet, options: &SchemeOptions) -> Result<MeanRes
         },
         options.stop.tol
     )];
-    let flagged = outliers(&d);
+    let flagged = outlier_trials(&d);
     if !flagged.is_empty() {
         let list: Vec<String> = flagged
             .iter()
             .take(20)
-            .map(|(i, z)| format!("{i} (z = {z:.1})"))
+            .map(|o| format!("{} (z = {:.1})", o.trial, o.z))
             .collect();
         diagnostics.notes.push(format!(
             "{} trial(s) flagged as outliers (modified z-score of the distance to this mean above 3.5): {}{}",
@@ -176,6 +188,7 @@ fn robust(loss: Loss, set: &TrialSet, options: &SchemeOptions) -> Result<MeanRes
             if flagged.len() > 20 { ", …" } else { "" }
         ));
     }
+    diagnostics.outliers = flagged;
     if !converged {
         diagnostics.notes.push(format!(
             "the reweighting did not settle within {MAX_OUTER} steps"
