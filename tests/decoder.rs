@@ -95,6 +95,7 @@ fn cv_accuracy(set: &TrialSet, scheme: &str) -> f64 {
         },
         folds: Some(5),
         by_session: false,
+        recentre: false,
         seed: 3,
     }
     .run(set)

@@ -255,6 +255,9 @@ fn outlier_flags_reach_the_report_and_the_page() {
     assert!(page.contains("Outlier trials"));
     assert!(page.contains(&format!("{} of 100 trials flagged", expected.len())));
     for i in &expected {
-        assert!(page.contains(&format!("<tr><td>{i}</td>")), "trial {i} not on the page");
+        assert!(
+            page.contains(&format!("<tr><td>{i}</td>")),
+            "trial {i} not on the page"
+        );
     }
 }

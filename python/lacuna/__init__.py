@@ -23,7 +23,10 @@ import numpy as np
 from . import _lacuna
 from ._lacuna import LacunaError, __version__
 
-__all__ = ["mean", "means_by", "recentre", "compare", "extract", "schemes", "MaskedMean", "LacunaError", "__version__"]
+__all__ = [
+    "mean", "means_by", "recentre", "train", "classify", "merge", "compare", "extract",
+    "schemes", "MaskedMean", "LacunaError", "__version__",
+]
 
 
 def _as_stack(stack: Any) -> np.ndarray:
@@ -344,6 +347,157 @@ def recentre(
         json.dumps(job, allow_nan=False),
     )
     return out, json.loads(record)
+
+
+def train(
+    stack: Any,
+    mask: Any = None,
+    *,
+    labels: Sequence[Any],
+    sessions: Optional[Sequence[Any]] = None,
+    folds: Optional[int] = 5,
+    by_session: bool = False,
+    recentre: bool = False,
+    seed: int = 0,
+    weights: Any = None,
+    channels: Optional[Sequence[str]] = None,
+    **settings: Any,
+) -> Dict[str, Any]:
+    """Train a minimum-distance-to-mean decoder: the job of ``lacuna train``.
+
+    One mean per label (the masked mean unless ``scheme`` says otherwise; any
+    setting of :func:`mean` may be given); a trial is later assigned to the
+    class whose mean is nearest on its observed channels.
+
+    Parameters
+    ----------
+    labels : sequence of length N
+        Each trial's class; two or more classes.
+    sessions : sequence of length N, optional
+        Each trial's session (needed for ``by_session`` and ``recentre``).
+    folds : int or None
+        k-fold cross-validation (k >= 2), or None for none.
+    by_session : bool
+        Leave one session out instead of k folds.
+    recentre : bool
+        Re-centre every session at its own mean first; the model records it
+        and :func:`classify` re-centres new data the same way.
+
+    Returns
+    -------
+    dict
+        The model: the same document ``lacuna train --out`` writes (save it
+        with ``json.dump`` and ``lacuna classify --model`` reads it):
+        channels, classes, class means (None where not estimated), scheme,
+        ``training`` with the per-fold accuracy, balanced accuracy and the
+        confusion matrix. Decoding accuracy on research data says nothing
+        about clinical use.
+    """
+    s = _as_stack(stack)
+    m = _as_mask(mask, s)
+    w = _as_weights(weights, s.shape[0])
+    if folds is not None and (int(folds) < 2):
+        raise LacunaError(f"folds must be None (no cross-validation) or 2 and more, got {folds}")
+    job = {
+        "mean": _mean_job(**settings),
+        "folds": None if folds is None else int(folds),
+        "by_session": bool(by_session),
+        "recentre": bool(recentre),
+        "seed": int(seed),
+    }
+    if seed < 0:
+        raise LacunaError(f"seed must not be negative, got {seed}")
+    lab = _per_trial(labels, "labels", s.shape[0])
+    model = _lacuna.train(
+        s, m, w, _names(channels, s), lab, _per_trial(sessions, "sessions", s.shape[0]),
+        json.dumps(job, allow_nan=False),
+    )
+    return json.loads(model)
+
+
+def classify(
+    model: Union[Mapping[str, Any], str, "os.PathLike[str]"],
+    stack: Any,
+    mask: Any = None,
+    *,
+    sessions: Optional[Sequence[Any]] = None,
+    channels: Optional[Sequence[str]] = None,
+) -> Tuple[List[str], np.ndarray]:
+    """Classify trials with a model of :func:`train` (a dict, or the path of
+    a model file written by ``lacuna train``): the job of ``lacuna classify``.
+
+    Channels are matched to the model's by name (``channels`` names the
+    stack's; without it they are ``ch1``, ``ch2``, …); a channel the model
+    does not know is refused. A model trained on re-centred sessions
+    re-centres the data first (per session when ``sessions`` is given).
+
+    Returns
+    -------
+    classes : list of str
+        The predicted class of every trial.
+    distances : array (N, classes)
+        Affine-invariant distance of each trial's observed block to each
+        class mean's matching block, in the order of ``model["classes"]``.
+    """
+    if isinstance(model, (str, os.PathLike)):
+        with open(model, "r", encoding="utf-8") as f:
+            text = f.read()
+    else:
+        text = json.dumps(dict(model), allow_nan=False)
+    s = _as_stack(stack)
+    m = _as_mask(mask, s)
+    classes, distances = _lacuna.classify(
+        text, s, m, _names(channels, s), _per_trial(sessions, "sessions", s.shape[0])
+    )
+    return list(classes), distances
+
+
+def merge(*sets: Mapping[str, Any]) -> Dict[str, Any]:
+    """Pool trial sets recorded with different electrode lists: the job of
+    ``lacuna merge``.
+
+    Each set is a mapping with ``stack`` (N, p, p), ``channels`` (p names),
+    and optionally ``mask``, ``labels``, ``sessions`` and ``name`` (used as
+    the session of a set without sessions; default ``set1``, ``set2``, …).
+    Channels are matched by name; the result runs over their union, and a
+    channel a set lacks is unobserved in all its trials.
+
+    Returns
+    -------
+    dict with ``stack`` (NaN where unobserved), ``mask``, ``channels``,
+    ``labels`` (None when no set has labels), ``sessions`` and ``record``
+    (the merge.json document: each set's missing channels and the channel
+    pairs no trial observes together, whose covariance the masked mean
+    keeps at the maximum-determinant completion).
+    """
+    if len(sets) < 1:
+        raise LacunaError("nothing to merge: give two or more trial sets")
+    args = []
+    for k, st in enumerate(sets):
+        if not isinstance(st, Mapping):
+            raise TypeError(f"set {k + 1} must be a mapping with 'stack' and 'channels'")
+        unknown = set(st) - {"stack", "mask", "channels", "labels", "sessions", "name"}
+        if unknown:
+            raise LacunaError(f"set {k + 1}: unknown keys {sorted(unknown)}")
+        if "stack" not in st or "channels" not in st:
+            raise LacunaError(f"set {k + 1} needs 'stack' and 'channels'")
+        s = _as_stack(st["stack"])
+        m = _as_mask(st.get("mask"), s)
+        names = _names(st["channels"], s)
+        args.append((
+            str(st.get("name", f"set{k + 1}")), s, m, names,
+            _per_trial(st.get("labels"), "labels", s.shape[0]),
+            _per_trial(st.get("sessions"), "sessions", s.shape[0]),
+        ))
+    stack, mask, channels, labels, sessions, record = _lacuna.merge(args)
+    return {
+        "stack": stack,
+        "mask": mask,
+        "channels": list(channels),
+        "labels": None if labels is None else list(labels),
+        "sessions": list(sessions),
+        "record": json.loads(record),
+    }
 
 
 def extract(

@@ -52,3 +52,38 @@ def recentre(
     sessions: Optional[List[str]],
     job_json: str,
 ) -> Tuple[npt.NDArray[np.float64], str]: ...
+def train(
+    stack: npt.NDArray[np.float64],
+    mask: npt.NDArray[np.bool_],
+    weights: Optional[npt.NDArray[np.float64]],
+    channels: Optional[List[str]],
+    labels: List[str],
+    sessions: Optional[List[str]],
+    job_json: str,
+) -> str: ...
+def classify(
+    model_json: str,
+    stack: npt.NDArray[np.float64],
+    mask: npt.NDArray[np.bool_],
+    channels: Optional[List[str]],
+    sessions: Optional[List[str]],
+) -> Tuple[List[str], npt.NDArray[np.float64]]: ...
+def merge(
+    sets: List[
+        Tuple[
+            str,
+            npt.NDArray[np.float64],
+            npt.NDArray[np.bool_],
+            List[str],
+            Optional[List[str]],
+            Optional[List[str]],
+        ]
+    ],
+) -> Tuple[
+    npt.NDArray[np.float64],
+    npt.NDArray[np.bool_],
+    List[str],
+    Optional[List[str]],
+    List[str],
+    str,
+]: ...

@@ -10,7 +10,8 @@ use pyo3::exceptions::PyValueError;
 use pyo3::prelude::*;
 
 use lacuna::jobs::{
-    CompareJob, ExtractJob, GrandWeighting, GroupBy, GroupedMeanJob, MeanJob, RecentreJob,
+    CompareJob, ExtractJob, GrandWeighting, GroupBy, GroupedMeanJob, MeanJob, Model, RecentreJob,
+    TrainJob,
 };
 use lacuna::trials::{Trial, TrialSet};
 
@@ -224,6 +225,156 @@ fn recentre<'py>(
     Ok((flat.into_pyarray(py).reshape([n, p, p])?, record))
 }
 
+/// train(stack, mask, weights, channels, labels, sessions, job_json) -> model_json
+///
+/// Runs `lacuna::jobs::TrainJob` (settings as JSON; missing keys take the
+/// CLI's defaults) and returns the model as JSON text: the same document
+/// `lacuna train --out` writes, readable by `lacuna classify`.
+#[pyfunction]
+#[pyo3(signature = (stack, mask, weights, channels, labels, sessions, job_json))]
+#[allow(clippy::too_many_arguments)]
+fn train<'py>(
+    py: Python<'py>,
+    stack: PyReadonlyArray3<'py, f64>,
+    mask: PyReadonlyArray2<'py, bool>,
+    weights: Option<PyReadonlyArray1<'py, f64>>,
+    channels: Option<Vec<String>>,
+    labels: Vec<String>,
+    sessions: Option<Vec<String>>,
+    job_json: &str,
+) -> PyResult<String> {
+    let job: TrainJob = serde_json::from_str(job_json)
+        .map_err(|e| LacunaError::new_err(format!("settings: {e}")))?;
+    let (data, shape, observed, weights) = owned(&stack, &mask, weights.as_ref())?;
+    py.detach(move || -> lacuna::Result<String> {
+        let mut set = trial_set(&data, shape, &observed, weights, channels)?;
+        set.labels = Some(labels);
+        set.sessions = sessions;
+        let model = job.run(&set)?;
+        Ok(String::from_utf8_lossy(&lacuna::output::json_bytes(&model)).into_owned())
+    })
+    .map_err(to_py)
+}
+
+/// classify(model_json, stack, mask, channels, sessions) -> (classes, distances)
+///
+/// `Model::classify`: re-centres first when the model was trained on
+/// re-centred sessions, then assigns every trial to the nearest class mean
+/// on its observed block. Returns the predicted class names and the
+/// (N, classes) distances.
+#[pyfunction]
+#[pyo3(signature = (model_json, stack, mask, channels, sessions))]
+fn classify<'py>(
+    py: Python<'py>,
+    model_json: &str,
+    stack: PyReadonlyArray3<'py, f64>,
+    mask: PyReadonlyArray2<'py, bool>,
+    channels: Option<Vec<String>>,
+    sessions: Option<Vec<String>>,
+) -> PyResult<(Vec<String>, Bound<'py, PyArray2<f64>>)> {
+    let model: Model = serde_json::from_str(model_json)
+        .map_err(|e| LacunaError::new_err(format!("not a lacuna model: {e}")))?;
+    let (data, shape, observed, _) = owned(&stack, &mask, None)?;
+    let k = model.classes.len();
+    let predictions = py
+        .detach(
+            move || -> lacuna::Result<Vec<lacuna::jobs::decoder::Prediction>> {
+                let mut set = trial_set(&data, shape, &observed, None, channels)?;
+                set.sessions = sessions;
+                model.classify(&set)
+            },
+        )
+        .map_err(to_py)?;
+    let n = predictions.len();
+    let flat: Vec<f64> = predictions
+        .iter()
+        .flat_map(|p| p.distances.iter().copied())
+        .collect();
+    let classes = predictions.into_iter().map(|p| p.class).collect();
+    Ok((classes, flat.into_pyarray(py).reshape([n, k])?))
+}
+
+/// One trial set handed to `merge`: name, stack, mask, channels, labels, sessions.
+type SetIn<'py> = (
+    String,
+    PyReadonlyArray3<'py, f64>,
+    PyReadonlyArray2<'py, bool>,
+    Vec<String>,
+    Option<Vec<String>>,
+    Option<Vec<String>>,
+);
+
+/// The merged set: stack, mask, channels, labels, sessions, record JSON.
+type Merged<'py> = (
+    Bound<'py, PyArray3<f64>>,
+    Bound<'py, PyArray2<bool>>,
+    Vec<String>,
+    Option<Vec<String>>,
+    Vec<String>,
+    String,
+);
+
+/// merge(sets) -> (stack, mask, channels, labels, sessions, record_json)
+///
+/// `lacuna::trials::merge::merge_by_name` over the sets, with the record
+/// `lacuna merge` writes as merge.json.
+#[pyfunction]
+fn merge<'py>(py: Python<'py>, sets: Vec<SetIn<'py>>) -> PyResult<Merged<'py>> {
+    let mut owned_sets = Vec::new();
+    for (name, stack, mask, channels, labels, sessions) in &sets {
+        let (data, shape, observed, _) = owned(stack, mask, None)?;
+        owned_sets.push((
+            name.clone(),
+            data,
+            shape,
+            observed,
+            channels.clone(),
+            labels.clone(),
+            sessions.clone(),
+        ));
+    }
+    let (merged, record) = py
+        .detach(move || -> lacuna::Result<(TrialSet, String)> {
+            let mut built = Vec::new();
+            for (name, data, shape, observed, channels, labels, sessions) in owned_sets {
+                let mut set =
+                    trial_set(&data, shape, &observed, None, Some(channels)).map_err(|e| {
+                        lacuna::LacunaError::InGroup {
+                            group: name.clone(),
+                            source: Box::new(e),
+                        }
+                    })?;
+                set.labels = labels;
+                set.sessions = sessions;
+                built.push((name, set));
+            }
+            let merged = lacuna::trials::merge::merge_by_name(&built)?;
+            let record = lacuna::trials::merge::MergeRecord::of(&built, &merged);
+            let json = String::from_utf8_lossy(&lacuna::output::json_bytes(&record)).into_owned();
+            Ok((merged, json))
+        })
+        .map_err(to_py)?;
+    let (n, p) = (merged.len(), merged.n_channels());
+    let stack = lacuna::trials::io::nan_stack(&merged)
+        .into_pyarray(py)
+        .reshape([n, p, p])?;
+    let mut mask = vec![false; n * p];
+    for (i, t) in merged.trials().iter().enumerate() {
+        for &c in &t.observed {
+            mask[i * p + c] = true;
+        }
+    }
+    let mask = mask.into_pyarray(py).reshape([n, p])?;
+    Ok((
+        stack,
+        mask,
+        merged.channels().to_vec(),
+        merged.labels.clone(),
+        merged.sessions.clone().unwrap_or_default(),
+        record,
+    ))
+}
+
 /// Covariances (N, p, p), observation mask (N, p) and the record as JSON.
 type Extracted<'py> = (
     Bound<'py, PyArray3<f64>>,
@@ -348,5 +499,8 @@ fn _lacuna(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(compare, m)?)?;
     m.add_function(wrap_pyfunction!(grouped_mean, m)?)?;
     m.add_function(wrap_pyfunction!(recentre, m)?)?;
+    m.add_function(wrap_pyfunction!(train, m)?)?;
+    m.add_function(wrap_pyfunction!(classify, m)?)?;
+    m.add_function(wrap_pyfunction!(merge, m)?)?;
     Ok(())
 }

@@ -4,8 +4,8 @@
 use std::path::PathBuf;
 
 use clap::Args;
+use lacuna::jobs::MeanJob;
 use lacuna::jobs::decoder::{Model, TrainJob};
-use lacuna::jobs::{MeanJob, RecentreJob};
 use lacuna::trials::io::load_trial_set;
 use lacuna::{LacunaError, Result};
 
@@ -68,8 +68,9 @@ pub fn train(a: TrainArgs) -> Result<i32> {
             drop_unobserved: a.drop_unobserved,
             ..MeanJob::default()
         },
-        folds: (a.folds > 0).then_some(a.folds),
+        folds: (a.folds != 0).then_some(a.folds),
         by_session: a.by_session,
+        recentre: a.recentre,
         seed: a.seed,
     };
     job.mean.options(None)?;
@@ -91,21 +92,13 @@ pub fn train(a: TrainArgs) -> Result<i32> {
     let (l, s) = lacuna::trials::io::read_labels(&a.labels, set.len())?;
     set.labels = Some(l);
     set.sessions = s;
-    if a.recentre {
-        if set.sessions.is_none() {
-            return Err(LacunaError::MissingSetting {
-                setting: "labels".into(),
-                needed_for: "--recentre (a labels file with a `session` column)".into(),
-            });
-        }
-        set = RecentreJob {
-            mean: job.mean.clone(),
-        }
-        .run(&set)?
-        .set;
+    if a.recentre && set.sessions.is_none() {
+        return Err(LacunaError::MissingSetting {
+            setting: "labels".into(),
+            needed_for: "--recentre (a labels file with a `session` column)".into(),
+        });
     }
-    let mut model = job.run(&set)?;
-    model.recentred = a.recentre;
+    let model = job.run(&set)?;
     let json = serde_json::to_string_pretty(&model).unwrap_or_default();
     lacuna::output::write_outputs(None, vec![(a.out.clone(), json.into_bytes())])?;
     if !a.quiet {
@@ -215,18 +208,7 @@ pub fn classify(a: ClassifyArgs) -> Result<i32> {
     };
     // A model trained on re-centred sessions sees data re-centred the same
     // way: each session (or all trials, without sessions) at its own mean.
-    if model.recentred {
-        set = RecentreJob {
-            mean: MeanJob {
-                scheme: model.scheme.clone(),
-                drop_unobserved: true,
-                ..MeanJob::default()
-            },
-        }
-        .run(&set)?
-        .set;
-    }
-    let predictions = model.predict(&set)?;
+    let predictions = model.classify(&set)?;
     let mut header = vec!["trial".to_string(), "class".to_string()];
     header.extend(model.classes.iter().map(|c| format!("distance to {c}")));
     let rows = predictions.iter().enumerate().map(|(i, p)| {

@@ -75,31 +75,9 @@ pub fn run(a: MergeArgs) -> Result<i32> {
         sets.push((name, s));
     }
     let merged = lacuna::trials::merge::merge_by_name(&sets)?;
-    let ident = lacuna::diagnose::identifiability(&merged);
+    let record = lacuna::trials::merge::MergeRecord::of(&sets, &merged);
     let names = merged.channels();
-    let never_together: Vec<String> = ident
-        .unconstrained_pairs
-        .iter()
-        .map(|&[x, y]| format!("{}–{}", names[x], names[y]))
-        .collect();
-    let per_set: Vec<serde_json::Value> = sets
-        .iter()
-        .map(|(n, s)| {
-            serde_json::json!({
-                "set": n,
-                "trials": s.len(),
-                "channels": s.channels(),
-                "missing": names.iter().filter(|c| !s.channels().contains(c)).collect::<Vec<_>>(),
-            })
-        })
-        .collect();
-    let record = serde_json::json!({
-        "merge_version": "1",
-        "lacuna_version": env!("CARGO_PKG_VERSION"),
-        "channels": names,
-        "sets": per_set,
-        "pairs_never_observed_together": never_together,
-    });
+    let never_together = &record.pairs_never_observed_together;
     let mut out: Vec<(PathBuf, Vec<u8>)> = vec![
         (
             a.out.join("covs.npy"),

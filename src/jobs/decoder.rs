@@ -75,8 +75,10 @@ pub struct Prediction {
     pub distances: Vec<f64>,
 }
 
-/// Settings of training.
-#[derive(Debug, Clone)]
+/// Settings of training (as JSON from Python: missing keys take these
+/// defaults, which are the CLI's).
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
 pub struct TrainJob {
     /// The mean job that gives each class mean.
     pub mean: MeanJob,
@@ -84,7 +86,22 @@ pub struct TrainJob {
     pub folds: Option<usize>,
     /// Leave one session out instead of k folds (needs sessions).
     pub by_session: bool,
+    /// Re-centre every session at its own mean before training (needs
+    /// sessions); the model records it and `Model::classify` does the same.
+    pub recentre: bool,
     pub seed: u64,
+}
+
+impl Default for TrainJob {
+    fn default() -> Self {
+        TrainJob {
+            mean: MeanJob::default(),
+            folds: Some(5),
+            by_session: false,
+            recentre: false,
+            seed: 0,
+        }
+    }
 }
 
 impl Model {
@@ -138,8 +155,30 @@ impl Model {
         self.mean_matrices().map(|_| ())
     }
 
+    /// Predicts every trial of `set` as the model asks: a model trained on
+    /// re-centred sessions first re-centres `set` the same way (each session
+    /// at its own mean, or all trials as one session when `set` has no
+    /// sessions); then [`Model::predict`].
+    pub fn classify(&self, set: &TrialSet) -> Result<Vec<Prediction>> {
+        self.check()?;
+        if !self.recentred {
+            return self.predict(set);
+        }
+        let centred = super::RecentreJob {
+            mean: MeanJob {
+                scheme: self.scheme.clone(),
+                drop_unobserved: true,
+                ..MeanJob::default()
+            },
+        }
+        .run(set)?
+        .set;
+        self.predict(&centred)
+    }
+
     /// Predicts every trial of `set`, whose channels are matched to the
-    /// model's by name: a channel the model does not know is refused.
+    /// model's by name: a channel the model does not know is refused. The
+    /// trials are taken as they are (no re-centring: see [`Model::classify`]).
     pub fn predict(&self, set: &TrialSet) -> Result<Vec<Prediction>> {
         self.check()?;
         let at: Vec<usize> = set
@@ -233,6 +272,33 @@ impl TrainJob {
     /// Fits one mean per class on all trials, and cross-validates when asked.
     pub fn run(&self, set: &TrialSet) -> Result<Model> {
         self.mean.options(None)?;
+        if self.folds == Some(1) || self.folds == Some(0) {
+            return Err(LacunaError::OutOfRange {
+                setting: "folds".into(),
+                value: format!("{}", self.folds.unwrap_or(0)),
+                allowed: "none (no cross-validation) or 2 and more".into(),
+            });
+        }
+        if !self.recentre {
+            return self.run_as_given(set);
+        }
+        if set.sessions.is_none() {
+            return Err(LacunaError::MissingSetting {
+                setting: "labels".into(),
+                needed_for: "re-centring (a labels file with a `session` column)".into(),
+            });
+        }
+        let centred = super::RecentreJob {
+            mean: self.mean.clone(),
+        }
+        .run(set)?
+        .set;
+        let mut model = self.run_as_given(&centred)?;
+        model.recentred = true;
+        Ok(model)
+    }
+
+    fn run_as_given(&self, set: &TrialSet) -> Result<Model> {
         let (classes, labels) = classes_of(set)?;
         let (means, trials, converged) = self.fit(set, &classes, labels)?;
         let cross_validation = match (self.folds, self.by_session) {

@@ -5,8 +5,67 @@
 //! weights, labels and sessions (a set without sessions gets its own name
 //! as the session, so the sets stay apart for `--by session`).
 
+use serde::Serialize;
+
 use crate::error::{LacunaError, Result};
 use crate::trials::TrialSet;
+
+/// Layout version of the merge record (merge.json).
+pub const MERGE_VERSION: &str = "1";
+
+/// What a merge did: the union, each set's part, and the channel pairs no
+/// trial of any set observes together (written as merge.json).
+#[derive(Debug, Clone, Serialize)]
+pub struct MergeRecord {
+    pub merge_version: &'static str,
+    pub lacuna_version: &'static str,
+    pub channels: Vec<String>,
+    pub sets: Vec<MergedSet>,
+    /// "A–B" for every pair never observed together in the merged set: the
+    /// masked mean keeps their covariance at the max-determinant completion.
+    pub pairs_never_observed_together: Vec<String>,
+}
+
+/// One input set's part of a merge.
+#[derive(Debug, Clone, Serialize)]
+pub struct MergedSet {
+    pub set: String,
+    pub trials: usize,
+    pub channels: Vec<String>,
+    /// Channels of the union this set lacks (unobserved in all its trials).
+    pub missing: Vec<String>,
+}
+
+impl MergeRecord {
+    /// The record of merging `sets` into `merged`.
+    pub fn of(sets: &[(String, TrialSet)], merged: &TrialSet) -> Self {
+        let names = merged.channels();
+        let ident = crate::diagnose::identifiability(merged);
+        MergeRecord {
+            merge_version: MERGE_VERSION,
+            lacuna_version: env!("CARGO_PKG_VERSION"),
+            channels: names.to_vec(),
+            sets: sets
+                .iter()
+                .map(|(n, s)| MergedSet {
+                    set: n.clone(),
+                    trials: s.len(),
+                    channels: s.channels().to_vec(),
+                    missing: names
+                        .iter()
+                        .filter(|c| !s.channels().contains(c))
+                        .cloned()
+                        .collect(),
+                })
+                .collect(),
+            pairs_never_observed_together: ident
+                .unconstrained_pairs
+                .iter()
+                .map(|&[x, y]| format!("{}–{}", names[x], names[y]))
+                .collect(),
+        }
+    }
+}
 
 /// Merges `sets` (each with a name for messages and sessions) over the
 /// union of their channels, in order of first appearance.
