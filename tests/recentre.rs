@@ -89,6 +89,38 @@ fn each_block_is_whitened_by_its_sessions_sub_block() {
     }
 }
 
+// Common practice, no source: the per-pattern caching and the parallel loop
+// change nothing — each trial is whitened exactly as by its own inverse
+// square root (bit for bit), and 1 and 2 threads give identical stacks.
+#[test]
+fn whitening_is_per_trial_exact_and_thread_independent() {
+    use lacuna::jobs::recentre::whiten_by;
+    let set = three_sessions(60, 6, 0.5);
+    let m = spd(6, 30.0, 4);
+    let idx: Vec<usize> = (0..set.len()).collect();
+    let run = |threads| {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap()
+            .install(|| whiten_by(&set, &idx, &m).unwrap())
+    };
+    let (one, two) = (run(1), run(2));
+    for (i, (a, b)) in one.iter().zip(&two).enumerate() {
+        assert_eq!(a.block, b.block, "trial {i}");
+        let t = &set.trials()[i];
+        let w = invsqrtm_spd(&sub_block(&m, &t.observed));
+        assert_eq!(a.block, symmetrize(&(&w * &t.block * &w)), "trial {i}");
+    }
+    // A mean with a non-finite entry on an observed channel names the first such trial.
+    let mut bad = m.clone();
+    bad[(3, 3)] = f64::NAN;
+    let first = (0..set.len())
+        .find(|&i| set.trials()[i].observed.contains(&3))
+        .unwrap();
+    assert_eq!(whiten_by(&set, &idx, &bad).err(), Some(first));
+}
+
 // With masks the re-centred mean is near the identity but not at it (the
 // masked cost is not invariant under the per-block whitening; docs/sessions.md).
 // Measured on these sets (40 % of trials losing 1–2 of 6 channels): the

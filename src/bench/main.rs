@@ -7,6 +7,7 @@
 
 mod compare;
 mod ingest;
+mod throughput;
 
 use std::path::PathBuf;
 use std::process::Command;
@@ -70,7 +71,7 @@ fn parse() -> Args {
             }
             "--help" | "-h" => {
                 println!(
-                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|rare] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--workers 1,2] [--file REC.bdf]\n\n\
+                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|rare|hard|throughput] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--workers 1,2] [--file REC.bdf]\n\n\
                      karcher: full-data Karcher mean, default sizes 100x{{8,32,64,128}} and 10000x{{8,32,64,128}}\n\
                      masked:  airm-observed with 20% of trials missing 1-8 channels, default 10000x64\n\
                      compare: the whole compare pipeline on --size NxP (default 2000x32), per stage\n\
@@ -78,6 +79,7 @@ fn parse() -> Args {
                               read, then 2 s epochs with 8-30 Hz band-pass, detection and OAS; throughput and peak memory\n\
                      hard:    short windows (T = p + 8), condition 1e5, gain drift, every trial missing 1-6 channels; default 2000x{{32,64}}\n\
                      rare:    masked sets with channels observed in few trials, plain and preconditioned solver\n\
+                     throughput: re-centring and prediction trials/s (4 sessions, 2 classes, 20% of trials missing 1-8 channels); default 10000x{{32,64}}\n\
                      --reference PYTHON runs tests/reference/bench_reference.py with that interpreter on the same data\n\
                      --workers K,.. runs the reference once per process-pool size (default 1,2: one process, then both cores)\n\
                      (needs numpy/scipy: pip install -r tests/reference/requirements.txt)"
@@ -95,6 +97,8 @@ fn parse() -> Args {
             vec![(2000, 32), (2000, 64)]
         } else if a.mode == "compare" {
             vec![(2000, 32)]
+        } else if a.mode == "throughput" {
+            vec![(10_000, 32), (10_000, 64)]
         } else {
             [100, 10_000]
                 .iter()
@@ -174,9 +178,9 @@ fn evaluation_seconds(set: &TrialSet, x: &lacuna::Mat) -> f64 {
 fn kernels() {
     use lacuna::spd::kernels::add_rebuild;
     println!(
-        "| p | Cholesky (µs) | whitening (µs) | eigen nalgebra (µs) | eigen faer (µs) | rebuild U·diag·Uᵀ (µs) |"
+        "| p | Cholesky (µs) | whitening (µs) | eigen nalgebra (µs) | eigen faer (µs) | values only nalgebra (µs) | values only faer (µs) | rebuild U·diag·Uᵀ (µs) |"
     );
-    println!("|---|---|---|---|---|---|");
+    println!("|---|---|---|---|---|---|---|---|");
     for p in [8usize, 16, 32, 48, 64, 128, 256] {
         let mut rng = Rng::new(p as u64);
         let a = random_spd(p, 100.0, &mut rng);
@@ -205,10 +209,18 @@ fn kernels() {
         let t_faer = time(&mut || {
             std::hint::black_box(fm.self_adjoint_eigen(faer::Side::Lower).unwrap());
         });
+        let t_nal_v = time(&mut || {
+            std::hint::black_box(m.clone().symmetric_eigenvalues());
+        });
+        let t_faer_v = time(&mut || {
+            std::hint::black_box(fm.self_adjoint_eigenvalues(faer::Side::Lower).unwrap());
+        });
         let e = sym_eigen(&m);
         let mut acc = lacuna::Mat::zeros(p, p);
         let t_re = time(&mut || add_rebuild(&mut acc, &e.vectors, &e.values));
-        println!("| {p} | {t_chol:.1} | {t_white:.1} | {t_nal:.1} | {t_faer:.1} | {t_re:.1} |");
+        println!(
+            "| {p} | {t_chol:.1} | {t_white:.1} | {t_nal:.1} | {t_faer:.1} | {t_nal_v:.1} | {t_faer_v:.1} | {t_re:.1} |"
+        );
     }
 }
 
@@ -337,6 +349,10 @@ fn main() {
         "compare" => {
             let (n, p) = args.sizes.first().copied().unwrap_or((2000, 32));
             compare::run(n, p);
+            return;
+        }
+        "throughput" => {
+            throughput::run(&args.sizes, args.reference.as_deref(), &args.workers);
             return;
         }
         "ingest-generate" => {

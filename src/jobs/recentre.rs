@@ -81,27 +81,18 @@ impl RecentreJob {
         let mut blocks: Vec<Option<Mat>> = vec![None; set.len()];
         let mut sessions = Vec::with_capacity(grouped.groups.len());
         for g in &grouped.groups {
-            let mut recentred = Vec::with_capacity(g.trials.len());
-            for &i in &g.trials {
-                let t = &set.trials()[i];
-                let m = sub_block(&g.mean, &t.observed);
-                if m.iter().any(|v| !v.is_finite()) {
-                    return Err(LacunaError::InGroup {
-                        group: g.name.clone(),
-                        source: Box::new(LacunaError::trial(
-                            Some(i),
-                            None,
-                            "observes a channel the session mean does not estimate; choose a scheme that estimates every observed channel",
-                        )),
-                    });
+            let recentred = whiten_by(set, &g.trials, &g.mean).map_err(|i| {
+                LacunaError::InGroup {
+                    group: g.name.clone(),
+                    source: Box::new(LacunaError::trial(
+                        Some(i),
+                        None,
+                        "observes a channel the session mean does not estimate; choose a scheme that estimates every observed channel",
+                    )),
                 }
-                let w = invsqrtm_spd(&m);
-                let b = symmetrize(&(&w * &t.block * &w));
-                recentred.push(Trial {
-                    observed: t.observed.clone(),
-                    block: b.clone(),
-                });
-                blocks[i] = Some(b);
+            })?;
+            for (&i, t) in g.trials.iter().zip(&recentred) {
+                blocks[i] = Some(t.block.clone());
             }
             let residual = residual(set.channels(), recentred, &self.mean)?;
             let d = &g.run.result.diagnostics;
@@ -133,6 +124,48 @@ impl RecentreJob {
         out.sessions = set.sessions.clone();
         Ok(Recentred { set: out, sessions })
     }
+}
+
+/// The trials `idx` of `set`, each observed block C whitened by the
+/// matching sub-block of `mean`: M[o,o]^{-1/2} C M[o,o]^{-1/2}. The inverse
+/// square root is computed once per observation pattern (trials sharing a
+/// pattern share it; the result is the same bit for bit as computing it per
+/// trial) and the trials run in parallel. Err(i): trial i observes a channel
+/// where `mean` is not finite.
+pub fn whiten_by(
+    set: &TrialSet,
+    idx: &[usize],
+    mean: &Mat,
+) -> std::result::Result<Vec<Trial>, usize> {
+    use rayon::prelude::*;
+    use std::collections::BTreeMap;
+    let mut patterns: BTreeMap<&[usize], usize> = BTreeMap::new();
+    for &i in idx {
+        let next = patterns.len();
+        patterns.entry(&set.trials()[i].observed).or_insert(next);
+    }
+    let mut by_slot: Vec<(&[usize], usize)> = patterns.iter().map(|(o, &k)| (*o, k)).collect();
+    by_slot.sort_by_key(|&(_, k)| k);
+    let factors: Vec<Option<Mat>> = by_slot
+        .par_iter()
+        .map(|(o, _)| {
+            let m = sub_block(mean, o);
+            m.iter().all(|v| v.is_finite()).then(|| invsqrtm_spd(&m))
+        })
+        .collect();
+    let out: Vec<std::result::Result<Trial, usize>> = idx
+        .par_iter()
+        .map(|&i| {
+            let t = &set.trials()[i];
+            let w = factors[patterns[t.observed.as_slice()]].as_ref().ok_or(i)?;
+            Ok(Trial {
+                observed: t.observed.clone(),
+                block: symmetrize(&(w * &t.block * w)),
+            })
+        })
+        .collect();
+    // The first failing trial in the given order, whatever the threads did.
+    out.into_iter().collect()
 }
 
 /// Distance from the identity of the masked mean of one re-centred session.

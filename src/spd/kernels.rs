@@ -16,6 +16,11 @@ use faer::{Accum, MatRef, Par, Side};
 /// From this many channels on, the eigendecomposition goes through faer.
 pub const EIGEN_FAER_FROM: usize = 56;
 
+/// From this many channels on, eigenvalues alone go through faer (measured
+/// with `lacuna-bench --mode kernels`: at 48 channels faer 129 µs against
+/// nalgebra 157 µs, at 32 nalgebra 43 µs against 60 µs).
+pub const EIGENVALUES_FAER_FROM: usize = 40;
+
 fn view(a: &Mat) -> MatRef<'_, f64> {
     MatRef::from_column_major_slice(a.as_slice(), a.nrows(), a.ncols())
 }
@@ -175,19 +180,16 @@ pub fn sym_eigen(a: &Mat) -> SymEigen {
     SymEigen { values, vectors }
 }
 
-/// Eigenvalues only (nondecreasing); cheaper than [`sym_eigen`].
+/// Eigenvalues only (nondecreasing): no eigenvectors are formed, which
+/// saves about 40 % of [`sym_eigen`] at 32 channels.
 pub fn sym_eigenvalues(a: &Mat) -> Vec<f64> {
     let n = a.nrows();
-    if n >= EIGEN_FAER_FROM
+    if n >= EIGENVALUES_FAER_FROM
         && let Ok(v) = view(a).self_adjoint_eigenvalues(Side::Lower)
     {
         return v;
     }
-    let mut v: Vec<f64> = nalgebra::SymmetricEigen::new(a.clone())
-        .eigenvalues
-        .iter()
-        .copied()
-        .collect();
+    let mut v: Vec<f64> = a.clone().symmetric_eigenvalues().iter().copied().collect();
     v.sort_by(f64::total_cmp);
     v
 }
