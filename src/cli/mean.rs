@@ -7,7 +7,7 @@ use std::sync::Arc;
 use clap::Args;
 use lacuna::Result;
 use lacuna::jobs::MeanJob;
-use lacuna::trials::io::load_trial_set;
+use lacuna::trials::shards::{self, Shard, ShardExtent};
 
 /// The example and the scheme names shown by `--help`.
 fn example() -> String {
@@ -42,13 +42,16 @@ pub struct MeanArgs {
     #[arg(long, value_name = "NAMES|FILE")]
     channels: Option<String>,
     /// Covariance stack: NPY float64 of shape (N, p, p). Rows/columns of
-    /// unobserved channels may be NaN (then --mask may be omitted).
-    #[arg(long, value_name = "STACK.npy")]
-    covs: PathBuf,
+    /// unobserved channels may be NaN (then --mask may be omitted). Several
+    /// stacks (shards: a list, or a quoted pattern such as 'shards/*.npy',
+    /// expanded in name order) form one trial set, concatenated in order.
+    #[arg(long, value_name = "STACK.npy", num_args = 1.., required = true)]
+    covs: Vec<PathBuf>,
     /// Observation mask: NPY uint8/bool (N, p) or CSV with a header of channel
-    /// names and one 0/1 row per trial (1 = observed).
-    #[arg(long, value_name = "MASK")]
-    mask: Option<PathBuf>,
+    /// names and one 0/1 row per trial (1 = observed). With several stacks,
+    /// one mask per stack in the same order (a list or a pattern).
+    #[arg(long, value_name = "MASK", num_args = 1..)]
+    mask: Vec<PathBuf>,
     /// Averaging scheme; `lacuna schemes` lists them.
     #[arg(long, default_value = "airm-observed", value_name = "NAME")]
     scheme: String,
@@ -59,8 +62,9 @@ pub struct MeanArgs {
     #[arg(long, value_name = "REPORT.json")]
     report: Option<PathBuf>,
     /// Trial weights: NPY float64 (N,) or a one-column CSV. Default: equal.
-    #[arg(long, value_name = "FILE")]
-    weights: Option<PathBuf>,
+    /// With several stacks, one file per stack in the same order.
+    #[arg(long, value_name = "FILE", num_args = 1..)]
+    weights: Vec<PathBuf>,
     /// Stop when the relative Riemannian gradient norm is at or below this.
     #[arg(long, default_value = "1e-10", value_name = "TOL")]
     tol: f64,
@@ -158,21 +162,51 @@ pub struct MeanArgs {
     json: bool,
 }
 
+/// The stack files (patterns expanded) paired with their masks and weights.
+fn shards_of(a: &MeanArgs) -> Result<Vec<Shard>> {
+    shards::pair(
+        shards::expand_all(&a.covs, "--covs")?,
+        shards::expand_all(&a.mask, "--mask")?,
+        shards::expand_all(&a.weights, "--weights")?,
+    )
+}
+
 /// Every input file with its flag (outputs must differ from all of them).
-fn input_files(a: &MeanArgs) -> Vec<(&'static str, PathBuf)> {
+fn input_files(a: &MeanArgs, shards: &[Shard]) -> Vec<(&'static str, PathBuf)> {
     let positions = super::positions_file(&a.positions).map(PathBuf::from);
-    let mut inputs = vec![("--covs", a.covs.clone())];
-    for (flag, path) in [
-        ("--mask", &a.mask),
-        ("--weights", &a.weights),
-        ("--labels", &a.labels),
-        ("--positions", &positions),
-    ] {
+    let mut inputs = Vec::new();
+    for s in shards {
+        inputs.push(("--covs", s.covs.clone()));
+        for (flag, path) in [("--mask", &s.mask), ("--weights", &s.weights)] {
+            if let Some(p) = path {
+                inputs.push((flag, p.clone()));
+            }
+        }
+    }
+    for (flag, path) in [("--labels", &a.labels), ("--positions", &positions)] {
         if let Some(p) = path {
             inputs.push((flag, p.clone()));
         }
     }
     inputs
+}
+
+/// Reads the shards as one trial set (after a memory check on their total
+/// size) and applies --channels.
+fn load(a: &MeanArgs, shards: &[Shard]) -> Result<(lacuna::TrialSet, Vec<ShardExtent>)> {
+    // The stack is read block by block, then worked on: peak resident memory
+    // measured at 1.5× the file (20 000 trials × 32 channels: 238 MB for a
+    // 156 MB stack); 2× leaves a margin.
+    let bytes: u64 = shards
+        .iter()
+        .filter_map(|s| std::fs::metadata(&s.covs).ok())
+        .map(|m| m.len())
+        .sum();
+    lacuna::limits::check_fits("lacuna mean", 2 * bytes, rayon::current_num_threads())?;
+    let (set, extents) = shards::load(shards)?;
+    let first_mask = shards.first().and_then(|s| s.mask.as_deref());
+    let set = super::apply_channel_names(set, a.channels.as_deref(), first_mask)?;
+    Ok((set, extents))
 }
 
 /// The mean job the flags describe (positions are loaded after the data).
@@ -223,8 +257,9 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     let mut job = job_of(&a);
     // Settings are checked before any file is read.
     job.options(None)?;
+    let shards = shards_of(&a)?;
     {
-        let inputs = input_files(&a);
+        let inputs = input_files(&a, &shards);
         let inputs: Vec<(&str, &std::path::Path)> =
             inputs.iter().map(|(o, p)| (*o, p.as_path())).collect();
         let mut outputs: Vec<(&str, &std::path::Path)> = vec![("--out", &a.out)];
@@ -233,14 +268,7 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         }
         lacuna::output::check_paths(&inputs, &outputs, &[])?;
     }
-    // The stack is read block by block, then worked on: peak resident memory
-    // measured at 1.5× the file (20 000 trials × 32 channels: 238 MB for a
-    // 156 MB stack); 2× leaves a margin.
-    if let Ok(m) = std::fs::metadata(&a.covs) {
-        lacuna::limits::check_fits("lacuna mean", 2 * m.len(), rayon::current_num_threads())?;
-    }
-    let set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
-    let set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
+    let (set, extents) = load(&a, &shards)?;
     if let Some(spec) = &a.positions {
         job.positions = Some(super::load_positions(spec, set.channels())?);
     }
@@ -261,12 +289,12 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     }
     let (set, result, summary) = (&run.set, &run.result, &run.summary);
     let mean_bytes = lacuna::trials::io::encode_matrix(&a.out, &result.published(), set.channels());
-    let mut input_paths: Vec<&std::path::Path> = vec![&a.covs];
-    for p in [&a.mask, &a.weights].into_iter().flatten() {
-        input_paths.push(p);
+    let inputs = input_files(&a, &shards);
+    let input_paths: Vec<&std::path::Path> = inputs.iter().map(|(_, p)| p.as_path()).collect();
+    let mut report = run.report(Some(lacuna::report::provenance::provenance(&input_paths)?));
+    if extents.len() > 1 {
+        report.shards = Some(extents.clone());
     }
-    input_paths.extend(super::positions_file(&a.positions));
-    let report = run.report(Some(lacuna::report::provenance::provenance(&input_paths)?));
     let json = report.to_json();
     // The mean and its report are staged together and renamed together: a
     // failing report never leaves a new mean beside an old report.
@@ -282,8 +310,13 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     if !a.quiet && !a.json {
         let incomplete = (0..set.len()).filter(|&i| !set.is_complete(i)).count();
         println!(
-            "lacuna mean: {} trials ({incomplete} incomplete), {} channels, scheme {}",
+            "lacuna mean: {} trials ({incomplete} incomplete){}, {} channels, scheme {}",
             set.len(),
+            if extents.len() > 1 {
+                format!(" from {} stack files", extents.len())
+            } else {
+                String::new()
+            },
             set.n_channels(),
             result.scheme
         );
@@ -368,15 +401,12 @@ fn run_grouped(a: MeanArgs) -> Result<i32> {
         grand,
     };
     job.mean.options(None)?;
-    let inputs = input_files(&a);
-    let inputs: Vec<(&str, &std::path::Path)> =
+    let shards = shards_of(&a)?;
+    let inputs = input_files(&a, &shards);
+    let input_refs: Vec<(&str, &std::path::Path)> =
         inputs.iter().map(|(o, p)| (*o, p.as_path())).collect();
-    lacuna::output::check_paths(&inputs, &[], &[("--out", &a.out)])?;
-    if let Ok(m) = std::fs::metadata(&a.covs) {
-        lacuna::limits::check_fits("lacuna mean", 2 * m.len(), rayon::current_num_threads())?;
-    }
-    let set = load_trial_set(&a.covs, a.mask.as_deref(), a.weights.as_deref())?;
-    let mut set = super::apply_channel_names(set, a.channels.as_deref(), a.mask.as_deref())?;
+    lacuna::output::check_paths(&input_refs, &[], &[("--out", &a.out)])?;
+    let (mut set, _) = load(&a, &shards)?;
     let (l, s) = lacuna::trials::io::read_labels(&labels, set.len())?;
     set.labels = Some(l);
     set.sessions = s;
@@ -393,11 +423,7 @@ fn run_grouped(a: MeanArgs) -> Result<i32> {
     if show_progress {
         eprintln!();
     }
-    let mut input_paths: Vec<&std::path::Path> = vec![&a.covs, &labels];
-    for p in [&a.mask, &a.weights].into_iter().flatten() {
-        input_paths.push(p);
-    }
-    input_paths.extend(super::positions_file(&a.positions));
+    let input_paths: Vec<&std::path::Path> = inputs.iter().map(|(_, p)| p.as_path()).collect();
     let report = means.report(Some(lacuna::report::provenance::provenance(&input_paths)?));
     let json = serde_json::to_string_pretty(&report).unwrap_or_default();
     let mut files: Vec<(PathBuf, Vec<u8>)> = Vec::new();

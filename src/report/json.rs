@@ -45,6 +45,9 @@ pub struct MeanReport<'a> {
     pub starts_agree: Option<bool>,
     pub ranks: Option<&'a crate::diagnose::RankTable>,
     pub provenance: Option<crate::report::provenance::Provenance>,
+    /// With several stack files: where each shard's trials are in the set.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub shards: Option<Vec<crate::trials::shards::ShardExtent>>,
     /// Physical unit of the data, and of the covariances (its square).
     pub unit: Option<String>,
     pub covariance_unit: Option<String>,
@@ -119,6 +122,7 @@ impl<'a> MeanReport<'a> {
             starts_agree: d.starts_agree,
             ranks: None,
             provenance: None,
+            shards: None,
             unit: None,
             covariance_unit: None,
             regularizer: None,

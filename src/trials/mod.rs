@@ -16,6 +16,7 @@
 pub mod io;
 pub mod merge;
 pub mod npy;
+pub mod shards;
 
 use crate::error::{LacunaError, ProblemKind, Result, TrialProblem};
 use crate::spd::Mat;
@@ -340,6 +341,11 @@ impl TrialSet {
     /// Raw weights as given (default 1).
     pub fn weights(&self) -> &[f64] {
         &self.weights
+    }
+
+    /// The trials, giving up the set.
+    pub fn into_trials(self) -> Vec<Trial> {
+        self.trials
     }
 
     /// Replaces the weights (same rules as [`TrialSet::new`]: one per trial,
