@@ -132,6 +132,14 @@ pub enum LacunaError {
     /// A numerical routine failed (not positive definite mid-iteration, NaN…).
     #[error("numerical failure: {0}")]
     Numerical(String),
+    /// An error another process of a distributed run met (its message, as
+    /// that process would have printed it, and its exit code).
+    #[error("process {rank}: {message}")]
+    OnProcess {
+        rank: usize,
+        exit_code: i32,
+        message: String,
+    },
     /// An error met while working on one group of trials (a condition, a
     /// session): the group is named, the cause kept as it is.
     #[error("group '{group}': {source}")]

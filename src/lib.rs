@@ -20,6 +20,7 @@
 #![allow(clippy::neg_cmp_op_on_partial_ord)]
 
 pub mod diagnose;
+pub mod distributed;
 pub mod electrodes;
 pub mod error;
 pub mod ingest;

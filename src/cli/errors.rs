@@ -21,6 +21,7 @@ pub fn exit_code(e: &LacunaError) -> i32 {
         LacunaError::Numerical(_) => 4,
         LacunaError::Write { .. } => 1,
         LacunaError::InGroup { source, .. } => exit_code(source),
+        LacunaError::OnProcess { exit_code, .. } => *exit_code,
     }
 }
 

@@ -254,6 +254,11 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             a.out.display()
         )));
     }
+    if let Some(k) = super::distributed::launched_processes()
+        && (k > 1 || cfg!(feature = "mpi"))
+    {
+        return run_distributed(a);
+    }
     let mut job = job_of(&a);
     // Settings are checked before any file is read.
     job.options(None)?;
@@ -367,6 +372,48 @@ pub fn run(a: MeanArgs) -> Result<i32> {
         return Ok(4);
     }
     Ok(0)
+}
+
+/// Under `mpirun`: the masked mean over shards spread across processes
+/// (cli/distributed.rs). Options that change what is computed beyond the
+/// plain masked mean are refused rather than ignored.
+fn run_distributed(a: MeanArgs) -> Result<i32> {
+    let refuse = |flag: &str| {
+        Err(lacuna::LacunaError::InvalidOption(format!(
+            "{flag} is not available in distributed runs (mpirun); they compute the plain masked mean (airm-observed) — run without mpirun for it"
+        )))
+    };
+    if a.scheme != "airm-observed" {
+        return refuse("--scheme other than airm-observed");
+    }
+    for (set, flag) in [
+        (a.by.is_some(), "--by"),
+        (a.labels.is_some(), "--labels"),
+        (a.starts > 1, "--starts"),
+        (a.regularize.is_some(), "--regularize"),
+        (a.correct_scale, "--correct-scale"),
+        (a.effective_samples.is_some(), "--effective-samples"),
+        (a.positions.is_some(), "--positions"),
+        (a.drop_unobserved, "--drop-unobserved"),
+    ] {
+        if set {
+            return refuse(flag);
+        }
+    }
+    let options = job_of(&a).options(None)?;
+    let shards = shards_of(&a)?;
+    super::distributed::run(super::distributed::DistributedArgs {
+        shards,
+        channels: a.channels.clone(),
+        out: a.out.clone(),
+        report: a.report.clone(),
+        json: a.json,
+        quiet: a.quiet,
+        job: lacuna::distributed::sharded::ShardedMeanJob {
+            stop: options.stop,
+            init: options.init,
+        },
+    })
 }
 
 /// `--by`: one mean per group, written into the --out folder.

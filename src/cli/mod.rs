@@ -6,6 +6,7 @@
 
 mod compare;
 mod decode;
+mod distributed;
 mod errors;
 mod extract;
 mod mean;

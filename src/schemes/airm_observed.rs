@@ -171,6 +171,15 @@ impl<'a> MaskedKarcherProblem<'a> {
         }
     }
 
+    /// The problem on one part (shard) of a larger trial set whose raw
+    /// weights total `total`: each trial weighs `w_i / total`, so the parts'
+    /// costs and gradients add up to the whole set's.
+    pub fn with_weight_total(set: &'a TrialSet, total: f64) -> Self {
+        let mut problem = Self::new(set);
+        problem.weights = set.weights().iter().map(|w| w / total).collect();
+        problem
+    }
+
     /// The same problem without the preconditioner: the solver then runs
     /// plain L-BFGS (checks and benchmarks).
     pub fn without_preconditioner(mut self) -> Self {
