@@ -21,30 +21,40 @@ fn simulated(n: usize, p: usize, seed: u64) -> TrialSet {
     masked_set(&full, random_dropout(n, p, 0.5, 3, &mut rng))
 }
 
-fn split(set: &TrialSet, cuts: &[usize]) -> Vec<LocalShard> {
+fn parts(set: &TrialSet, cuts: &[usize]) -> Vec<TrialSet> {
     let mut bounds = vec![0];
     bounds.extend_from_slice(cuts);
     bounds.push(set.len());
     bounds
         .windows(2)
-        .enumerate()
-        .map(|(index, w)| LocalShard {
-            index,
-            set: set
-                .select_trials(&(w[0]..w[1]).collect::<Vec<_>>())
-                .unwrap(),
+        .map(|w| {
+            set.select_trials(&(w[0]..w[1]).collect::<Vec<_>>())
+                .unwrap()
         })
         .collect()
 }
 
+/// Chunks of 3 200 bytes: 6 trials at p = 8, so every shard has several.
+const SMALL_CHUNKS: usize = 3200;
+
+fn split(set: &TrialSet, cuts: &[usize]) -> Vec<LocalShard> {
+    parts(set, cuts)
+        .iter()
+        .enumerate()
+        .map(|(index, part)| LocalShard::from_set(index, part, SMALL_CHUNKS).unwrap())
+        .collect()
+}
+
 fn job(init: InitRule) -> ShardedMeanJob {
-    ShardedMeanJob {
-        stop: StopRule {
+    let mut job = ShardedMeanJob::new(
+        StopRule {
             tol: 1e-11,
             max_iter: 500,
         },
         init,
-    }
+    );
+    job.chunk_bytes = SMALL_CHUNKS;
+    job
 }
 
 // Common practice, no source: the sum over shards is the sum over trials, so
@@ -52,7 +62,7 @@ fn job(init: InitRule) -> ShardedMeanJob {
 // 1e-11; they differ by rounding only: measured 1e-13 AIRM). Can fail.
 #[test]
 fn sharded_mean_equals_the_mean_of_the_whole_set() {
-    let set = simulated(300, 7, 2);
+    let set = simulated(300, 8, 2);
     let whole = AirmObserved
         .average(
             &set,
@@ -104,10 +114,97 @@ fn shard_counts_and_free_pairs_match_the_whole_set() {
     let r = job(InitRule::AvailableCase)
         .run(&Local, set.channels(), 3, &shards, None)
         .unwrap();
+    assert!(!r.streamed);
     let ident = lacuna::diagnose::identifiability(&set);
     assert_eq!(r.coobservation, ident.coobservation);
     assert_eq!(r.result.diagnostics.unconstrained_pairs, vec![[0, 1]]);
     assert_eq!(r.shard_trials, vec![40, 1, 79]);
+}
+
+// Common practice, no source: reading the shards again at every evaluation
+// (streaming) sums the very same chunks as holding them, so the mean is the
+// same bit for bit; and `mean --stream` on the command line writes it.
+#[test]
+fn streamed_shards_give_the_held_mean_bit_for_bit() {
+    use common::{Dir, s};
+    use lacuna::trials::shards::{Shard, ShardReader};
+    let d = Dir::new("dist-stream");
+    let set = simulated(260, 8, 12);
+    let cuts = [90, 91];
+    let mut held = Vec::new();
+    let mut streamed = Vec::new();
+    let mut covs = Vec::new();
+    for (j, part) in parts(&set, &cuts).iter().enumerate() {
+        let c = d.write(
+            &format!("s{j}.npy"),
+            &lacuna::trials::io::encode_stack_with_nan(part),
+        );
+        let m = d.write(
+            &format!("s{j}.csv"),
+            &lacuna::trials::io::encode_mask_csv(part),
+        );
+        let shard = Shard {
+            covs: c.clone(),
+            mask: Some(m),
+            weights: None,
+        };
+        let reader = ShardReader::open(&shard).unwrap();
+        held.push(LocalShard::held(j, &reader, SMALL_CHUNKS).unwrap());
+        streamed.push(LocalShard::streamed(j, reader));
+        covs.push(s(&c).to_string());
+    }
+    let a = job(InitRule::AvailableCase)
+        .run(&Local, set.channels(), 3, &held, None)
+        .unwrap();
+    let b = job(InitRule::AvailableCase)
+        .run(&Local, set.channels(), 3, &streamed, None)
+        .unwrap();
+    assert!(b.streamed && a.result.diagnostics.converged);
+    assert_eq!(a.result.mean, b.result.mean);
+    assert_eq!(
+        a.result.diagnostics.iterations,
+        b.result.diagnostics.iterations
+    );
+
+    // From the command line (default 32 MiB chunks): the masked mean.
+    let out = d.path("m.npy");
+    let report = d.path("m.json");
+    let mut args = vec!["mean", "--stream", "--covs"];
+    args.extend(covs.iter().map(String::as_str));
+    args.extend(["--out", s(&out), "--report", s(&report), "--quiet"]);
+    let (code, _, err) = common::lacuna(&args);
+    assert_eq!(code, 0, "{err}");
+    let m = lacuna::trials::io::read_matrix(&out).unwrap();
+    let whole = AirmObserved.average(&set, &Default::default()).unwrap();
+    assert!(airm_distance(&m, &whole.mean) < 1e-8);
+    let r = common::read_json(&report);
+    assert_eq!(r["n_trials"], 260);
+    assert_eq!(r["processes"], 1);
+}
+
+// A shard changed on disk between passes (here: cut short after it was
+// opened) stops the streamed run with that file's error, not a wrong mean.
+#[test]
+fn a_shard_that_breaks_during_streaming_is_an_error() {
+    use common::Dir;
+    use lacuna::trials::shards::{Shard, ShardReader};
+    let d = Dir::new("dist-break");
+    let set = simulated(120, 8, 13);
+    let c = d.write("s.npy", &lacuna::trials::io::encode_stack_with_nan(&set));
+    let reader = ShardReader::open(&Shard {
+        covs: c.clone(),
+        mask: None,
+        weights: None,
+    })
+    .unwrap();
+    let shards = vec![LocalShard::streamed(0, reader)];
+    let bytes = std::fs::read(&c).unwrap();
+    std::fs::write(&c, &bytes[..bytes.len() / 2]).unwrap();
+    let err = job(InitRule::AvailableCase)
+        .run(&Local, set.channels(), 1, &shards, None)
+        .err()
+        .expect("a truncated shard must fail");
+    assert!(err.to_string().contains("s.npy"), "{err}");
 }
 
 // Started by an MPI launcher but built without MPI: refused (every process

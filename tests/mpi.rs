@@ -106,6 +106,27 @@ fn check_ranks_agree(d: &Dir, set: &TrialSet, n_shards: usize) {
     let first = d.path("mean-1.npy");
     assert_eq!(means[0], means[1], "1 and 2 processes differ");
     assert_eq!(means[0], means[2], "1 and 4 processes differ");
+    // Reading the shards again at every evaluation changes nothing.
+    let streamed = d.path("mean-stream.npy");
+    let (code, _, err) = mpirun(
+        2,
+        &[
+            "mean",
+            "--stream",
+            "--covs",
+            &covs,
+            "--mask",
+            &masks,
+            "--out",
+            s(&streamed),
+        ],
+    );
+    assert_eq!(code, 0, "--stream: {err}");
+    assert_eq!(
+        means[0],
+        std::fs::read(&streamed).unwrap(),
+        "--stream differs"
+    );
     // The single-process mean of the same trials (not under mpirun).
     let whole = d.path("whole.npy");
     let (code, _, err) = lacuna(&[

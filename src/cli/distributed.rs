@@ -8,11 +8,10 @@ use std::time::Instant;
 
 use lacuna::distributed::sharded::{LocalShard, ShardedMeanJob};
 use lacuna::distributed::{Collective, owner};
-use lacuna::trials::shards::Shard;
+use lacuna::trials::shards::{Shard, ShardReader};
 use lacuna::{LacunaError, Result};
 
 /// The settings of a distributed `mean`.
-#[cfg_attr(not(feature = "mpi"), allow(dead_code))]
 pub struct DistributedArgs {
     pub shards: Vec<Shard>,
     pub channels: Option<String>,
@@ -20,6 +19,8 @@ pub struct DistributedArgs {
     pub report: Option<PathBuf>,
     pub json: bool,
     pub quiet: bool,
+    /// Read the shards again at every evaluation instead of holding them.
+    pub stream: bool,
     pub job: ShardedMeanJob,
 }
 
@@ -46,7 +47,6 @@ pub fn run(_a: DistributedArgs) -> Result<i32> {
     )))
 }
 
-#[cfg_attr(not(feature = "mpi"), allow(dead_code))]
 /// The error every process returns when one of them failed: the first
 /// failing process's own error there, its message and exit code elsewhere.
 fn agree(world: &dyn Collective, local: Result<()>) -> Result<()> {
@@ -73,7 +73,6 @@ fn agree(world: &dyn Collective, local: Result<()>) -> Result<()> {
     })
 }
 
-#[cfg_attr(not(feature = "mpi"), allow(dead_code))]
 /// A distributed run over `world` (any [`Collective`]: MPI, or one process
 /// in tests).
 pub fn run_on(world: &dyn Collective, a: DistributedArgs) -> Result<i32> {
@@ -108,13 +107,16 @@ pub fn run_on(world: &dyn Collective, a: DistributedArgs) -> Result<i32> {
             if owner(j, size) != rank {
                 continue;
             }
-            let set = lacuna::trials::io::load_trial_set(
-                &s.covs,
-                s.mask.as_deref(),
-                s.weights.as_deref(),
-            )?;
-            let set = super::apply_channel_names(set, a.channels.as_deref(), s.mask.as_deref())?;
-            mine.push(LocalShard { index: j, set });
+            let mut reader = ShardReader::open(s)?;
+            if let Some(spec) = &a.channels {
+                let (names, _) = super::channel_names(spec, s.mask.as_deref(), reader.channels())?;
+                reader.set_channel_names(names)?;
+            }
+            mine.push(if a.stream {
+                LocalShard::streamed(j, reader)
+            } else {
+                LocalShard::held(j, &reader, a.job.chunk_bytes)?
+            });
         }
         Ok(())
     })();
@@ -133,17 +135,17 @@ pub fn run_on(world: &dyn Collective, a: DistributedArgs) -> Result<i32> {
     };
     let own = mine
         .first()
-        .map(|s| digest(s.set.channels()))
+        .map(|s| digest(&s.channels()))
         .unwrap_or_default();
     let reference = world.gather_messages(&own)[0].clone();
     let checked = (|| -> Result<()> {
         for s in &mine {
-            if digest(s.set.channels()) != reference {
+            if digest(&s.channels()) != reference {
                 return Err(LacunaError::Format {
                     path: a.shards[s.index].covs.clone(),
                     message: format!(
                         "this shard's {} channels differ from those of the first shard ({}); shards must hold the same channels in the same order — pool different electrode sets by name with `lacuna merge`",
-                        s.set.channels().len(),
+                        s.channels().len(),
                         a.shards[0].covs.display()
                     ),
                 });
@@ -152,7 +154,7 @@ pub fn run_on(world: &dyn Collective, a: DistributedArgs) -> Result<i32> {
         Ok(())
     })();
     agree(world, checked)?;
-    let channels = mine[0].set.channels().to_vec();
+    let channels = mine[0].channels();
 
     let show = rank == 0 && !a.quiet && std::io::IsTerminal::is_terminal(&std::io::stderr());
     let progress = |r: &lacuna::solve::IterRecord| {

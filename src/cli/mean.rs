@@ -160,6 +160,11 @@ pub struct MeanArgs {
     /// Print the JSON report on stdout as well.
     #[arg(long)]
     json: bool,
+    /// Read the stack file(s) again, 32 MiB at a time, at every evaluation
+    /// instead of holding them: memory stays near 256 MiB whatever the
+    /// number of trials (the plain masked mean only; docs/scale.md).
+    #[arg(long)]
+    stream: bool,
 }
 
 /// The stack files (patterns expanded) paired with their masks and weights.
@@ -254,9 +259,9 @@ pub fn run(a: MeanArgs) -> Result<i32> {
             a.out.display()
         )));
     }
-    if let Some(k) = super::distributed::launched_processes()
-        && (k > 1 || cfg!(feature = "mpi"))
-    {
+    let under_mpi =
+        super::distributed::launched_processes().is_some_and(|k| k > 1 || cfg!(feature = "mpi"));
+    if under_mpi || a.stream {
         return run_distributed(a);
     }
     let mut job = job_of(&a);
@@ -374,13 +379,13 @@ pub fn run(a: MeanArgs) -> Result<i32> {
     Ok(0)
 }
 
-/// Under `mpirun`: the masked mean over shards spread across processes
-/// (cli/distributed.rs). Options that change what is computed beyond the
+/// Under `mpirun` or with --stream: the masked mean over shards (spread
+/// across processes under mpirun; cli/distributed.rs). Options that change what is computed beyond the
 /// plain masked mean are refused rather than ignored.
 fn run_distributed(a: MeanArgs) -> Result<i32> {
     let refuse = |flag: &str| {
         Err(lacuna::LacunaError::InvalidOption(format!(
-            "{flag} is not available in distributed runs (mpirun); they compute the plain masked mean (airm-observed) — run without mpirun for it"
+            "{flag} is not available in distributed runs (mpirun) or with --stream; they compute the plain masked mean (airm-observed) — run without them for it"
         )))
     };
     if a.scheme != "airm-observed" {
@@ -402,18 +407,22 @@ fn run_distributed(a: MeanArgs) -> Result<i32> {
     }
     let options = job_of(&a).options(None)?;
     let shards = shards_of(&a)?;
-    super::distributed::run(super::distributed::DistributedArgs {
+    let args = super::distributed::DistributedArgs {
         shards,
         channels: a.channels.clone(),
         out: a.out.clone(),
         report: a.report.clone(),
         json: a.json,
         quiet: a.quiet,
-        job: lacuna::distributed::sharded::ShardedMeanJob {
-            stop: options.stop,
-            init: options.init,
-        },
-    })
+        stream: a.stream,
+        job: lacuna::distributed::sharded::ShardedMeanJob::new(options.stop, options.init),
+    };
+    if super::distributed::launched_processes().is_some() {
+        super::distributed::run(args)
+    } else {
+        // --stream in one process.
+        super::distributed::run_on(&lacuna::distributed::Local, args)
+    }
 }
 
 /// `--by`: one mean per group, written into the --out folder.

@@ -170,14 +170,13 @@ pub fn run() -> i32 {
 /// Channel names from `--channels`: a comma-separated list, or a file holding
 /// the names (one per line or comma-separated). A CSV mask's header, when
 /// there is one, must agree with them.
-pub fn apply_channel_names(
-    set: lacuna::TrialSet,
-    spec: Option<&str>,
+/// The names `--channels` gives (comma-separated, or a file of names), with
+/// where they came from; checked against a CSV mask's header when there is one.
+pub fn channel_names(
+    spec: &str,
     mask: Option<&std::path::Path>,
-) -> lacuna::Result<lacuna::TrialSet> {
-    let Some(spec) = spec else {
-        return Ok(set);
-    };
+    header: &[String],
+) -> lacuna::Result<(Vec<String>, String)> {
     let path = std::path::Path::new(spec);
     let (text, source) = if path.is_file() {
         lacuna::trials::io::require_regular(path)?;
@@ -201,12 +200,24 @@ pub fn apply_channel_names(
             .and_then(|e| e.to_str())
             .is_some_and(|e| e.eq_ignore_ascii_case("csv"))
     });
-    if from_mask && names != set.channels() {
+    if from_mask && names != header {
         return Err(lacuna::LacunaError::InvalidOption(format!(
             "--channels ({}) disagrees with the mask's header ({}); give one or make them agree",
             names.join(", "),
-            set.channels().join(", ")
+            header.join(", ")
         )));
     }
+    Ok((names, source))
+}
+
+pub fn apply_channel_names(
+    set: lacuna::TrialSet,
+    spec: Option<&str>,
+    mask: Option<&std::path::Path>,
+) -> lacuna::Result<lacuna::TrialSet> {
+    let Some(spec) = spec else {
+        return Ok(set);
+    };
+    let (names, source) = channel_names(spec, mask, set.channels())?;
     set.with_channel_names(names, &source)
 }

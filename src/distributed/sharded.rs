@@ -20,14 +20,98 @@ use crate::solve::{Evaluation, IterRecord, SpdProblem, StopRule, lbfgs};
 use crate::spd::kernels::sym_eigen;
 use crate::spd::{Mat, symmetrize};
 use crate::trials::TrialSet;
+use crate::trials::shards::{CHUNK_BYTES, ShardReader, chunk_trials};
 
 /// Largest |ln λ| of a positive double: bounds the whitened cost terms.
 const LOG_RANGE: f64 = 745.0;
 
+/// Where a shard's trials come from: held in memory (read once, in chunks)
+/// or read again, chunk by chunk, at every pass (`--stream`).
+pub enum ShardSource {
+    Held(Vec<TrialSet>),
+    Streamed(ShardReader),
+}
+
 /// One shard this process holds: its position in the whole list and its trials.
 pub struct LocalShard {
     pub index: usize,
-    pub set: TrialSet,
+    pub source: ShardSource,
+}
+
+impl LocalShard {
+    /// Reads the whole shard now, chunk by chunk.
+    pub fn held(index: usize, reader: &ShardReader, chunk_bytes: usize) -> Result<Self> {
+        let sets = reader
+            .chunks(chunk_bytes)
+            .into_iter()
+            .map(|r| reader.read(r))
+            .collect::<Result<_>>()?;
+        Ok(LocalShard {
+            index,
+            source: ShardSource::Held(sets),
+        })
+    }
+
+    /// A trial set already in memory, cut into the same chunks.
+    pub fn from_set(index: usize, set: &TrialSet, chunk_bytes: usize) -> Result<Self> {
+        let step = chunk_trials(set.n_channels(), chunk_bytes);
+        let mut sets = Vec::new();
+        for a in (0..set.len()).step_by(step) {
+            let idx: Vec<usize> = (a..(a + step).min(set.len())).collect();
+            let trials = idx.iter().map(|&i| set.trials()[i].clone()).collect();
+            let mut part = TrialSet::new(set.channels().to_vec(), trials, None, "a shard's chunk")?;
+            part.set_part_weights(idx.iter().map(|&i| set.weights()[i]).collect())?;
+            sets.push(part);
+        }
+        Ok(LocalShard {
+            index,
+            source: ShardSource::Held(sets),
+        })
+    }
+
+    /// Reads the shard at every pass.
+    pub fn streamed(index: usize, reader: ShardReader) -> Self {
+        LocalShard {
+            index,
+            source: ShardSource::Streamed(reader),
+        }
+    }
+
+    pub fn len(&self) -> usize {
+        match &self.source {
+            ShardSource::Held(sets) => sets.iter().map(TrialSet::len).sum(),
+            ShardSource::Streamed(r) => r.len(),
+        }
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    pub fn channels(&self) -> Vec<String> {
+        match &self.source {
+            ShardSource::Held(sets) => sets
+                .first()
+                .map(|s| s.channels().to_vec())
+                .unwrap_or_default(),
+            ShardSource::Streamed(r) => r.channels().to_vec(),
+        }
+    }
+
+    /// `f` on every chunk in order (read from disk when streamed).
+    fn for_each_chunk(
+        &self,
+        chunk_bytes: usize,
+        f: &mut dyn FnMut(&TrialSet) -> Result<()>,
+    ) -> Result<()> {
+        match &self.source {
+            ShardSource::Held(sets) => sets.iter().try_for_each(f),
+            ShardSource::Streamed(r) => r
+                .chunks(chunk_bytes)
+                .into_iter()
+                .try_for_each(|range| f(&r.read(range)?)),
+        }
+    }
 }
 
 /// Settings of a distributed run (those of `MeanJob` that apply).
@@ -35,6 +119,19 @@ pub struct LocalShard {
 pub struct ShardedMeanJob {
     pub stop: StopRule,
     pub init: InitRule,
+    /// Stack bytes per chunk: the unit of every sum (and of reading when
+    /// streamed). Must be the same on every process.
+    pub chunk_bytes: usize,
+}
+
+impl ShardedMeanJob {
+    pub fn new(stop: StopRule, init: InitRule) -> Self {
+        ShardedMeanJob {
+            stop,
+            init,
+            chunk_bytes: CHUNK_BYTES,
+        }
+    }
 }
 
 /// What a distributed run found (identical on every process).
@@ -47,12 +144,35 @@ pub struct ShardedMean {
     pub rank_trials: Vec<usize>,
     /// Trials observing both channels.
     pub coobservation: Vec<Vec<usize>>,
+    /// The shards were read again at every pass.
+    pub streamed: bool,
 }
 
 impl ShardedMean {
     pub fn n_trials(&self) -> usize {
         self.shard_trials.iter().sum()
     }
+}
+
+/// Every process learns whether any failed; the first failing process's
+/// message reaches all (exit code 3: its input could not be read).
+fn agree(world: &dyn Collective, local: Result<()>) -> Result<()> {
+    let message = match &local {
+        Ok(()) => String::new(),
+        Err(e) => e.to_string(),
+    };
+    let all = world.gather_messages(&message);
+    let Some((rank, first)) = all.iter().enumerate().find(|(_, m)| !m.is_empty()) else {
+        return Ok(());
+    };
+    if rank == world.rank() {
+        return local;
+    }
+    Err(LacunaError::OnProcess {
+        rank,
+        exit_code: 3,
+        message: first.clone(),
+    })
 }
 
 /// Sums `local` over all processes; a local failure (Err) is announced to
@@ -83,10 +203,19 @@ fn reduce_exact(
 /// The cost over every process's shards.
 struct ShardedProblem<'a> {
     world: &'a dyn Collective,
-    parts: Vec<MaskedKarcherProblem<'a>>,
+    shards: &'a [LocalShard],
+    /// Prepared problems of held chunks, per shard (None when streamed).
+    held: Vec<Option<Vec<MaskedKarcherProblem<'a>>>>,
+    total: f64,
+    chunk_bytes: usize,
     p: usize,
     free_pairs: Vec<[usize; 2]>,
     bits: i32,
+    /// A read failed somewhere: every later evaluation is refused without
+    /// collective calls (all processes know it from the same reduction).
+    aborted: std::sync::atomic::AtomicBool,
+    /// This process's read error, if it had one.
+    error: std::sync::Mutex<Option<LacunaError>>,
 }
 
 impl SpdProblem for ShardedProblem<'_> {
@@ -95,32 +224,63 @@ impl SpdProblem for ShardedProblem<'_> {
     }
 
     fn evaluate(&self, w: &Mat) -> Option<Evaluation> {
+        use std::sync::atomic::Ordering;
+        if self.aborted.load(Ordering::SeqCst) {
+            return None;
+        }
         let p = self.p;
-        // Layout: cost, hint, failed shards, then the p×p whitened gradient.
-        let len = 3 + p * p;
+        // Layout: cost, hint, singular chunks, failed reads, then the p×p
+        // whitened gradient.
+        let len = 4 + p * p;
+        let row_of = |e: Option<Evaluation>| {
+            let mut row = vec![0.0; len];
+            match e {
+                Some(e) => {
+                    row[0] = e.cost;
+                    row[1] = e
+                        .step_hint
+                        .map_or(0.0, |h| if h > 0.0 { 2.0 / h } else { 0.0 });
+                    row[4..].copy_from_slice(e.grad.as_slice());
+                }
+                None => row[2] = 1.0,
+            }
+            row
+        };
         let local = (|| -> Result<ExactSum> {
             let mut acc = ExactSum::new(len, self.bits);
-            for part in &self.parts {
-                let mut row = vec![0.0; len];
-                match part.evaluate(w) {
-                    Some(e) => {
-                        row[0] = e.cost;
-                        row[1] = e
-                            .step_hint
-                            .map_or(0.0, |h| if h > 0.0 { 2.0 / h } else { 0.0 });
-                        row[3..].copy_from_slice(e.grad.as_slice());
+            for (shard, held) in self.shards.iter().zip(&self.held) {
+                match held {
+                    Some(problems) => {
+                        for problem in problems {
+                            acc.add(&row_of(problem.evaluate(w)))?;
+                        }
                     }
-                    None => row[2] = 1.0,
+                    None => {
+                        let read = shard.for_each_chunk(self.chunk_bytes, &mut |set| {
+                            let problem = MaskedKarcherProblem::with_weight_total(set, self.total);
+                            acc.add(&row_of(problem.evaluate(w)))
+                        });
+                        if let Err(e) = read {
+                            let mut row = vec![0.0; len];
+                            row[3] = 1.0;
+                            acc.add(&row)?;
+                            *self.error.lock().unwrap_or_else(|p| p.into_inner()) = Some(e);
+                            break;
+                        }
+                    }
                 }
-                acc.add(&row)?;
             }
             Ok(acc)
         })();
         let total = reduce_exact(self.world, local, len, self.bits, "an evaluation").ok()?;
+        if total[3] > 0.0 {
+            self.aborted.store(true, Ordering::SeqCst);
+            return None;
+        }
         if total[2] > 0.0 {
             return None;
         }
-        let grad = symmetrize(&Mat::from_column_slice(p, p, &total[3..]));
+        let grad = symmetrize(&Mat::from_column_slice(p, p, &total[4..]));
         Some(Evaluation {
             cost: total[0],
             grad,
@@ -148,30 +308,46 @@ impl ShardedMeanJob {
         observer: Option<&(dyn Fn(&IterRecord) + Sync)>,
     ) -> Result<ShardedMean> {
         self.stop.check()?;
+        if self.chunk_bytes == 0 {
+            return Err(LacunaError::InvalidOption(
+                "chunk_bytes must be positive".into(),
+            ));
+        }
         let p = channels.len();
+        let cb = self.chunk_bytes;
 
         // Trials per shard and per process (integers: exact).
         let mut counts = vec![0i64; n_shards + world.size()];
         for s in mine {
-            counts[s.index] = s.set.len() as i64;
-            counts[n_shards + world.rank()] += s.set.len() as i64;
+            counts[s.index] = s.len() as i64;
+            counts[n_shards + world.rank()] += s.len() as i64;
         }
         world.sum_i64(&mut counts);
         let shard_trials: Vec<usize> = counts[..n_shards].iter().map(|&c| c as usize).collect();
         let rank_trials: Vec<usize> = counts[n_shards..].iter().map(|&c| c as usize).collect();
         let n_trials: usize = shard_trials.iter().sum();
 
-        // Co-observation counts.
+        // One pass: co-observation counts, the largest weight and entry, and
+        // each chunk's weight sum (checked reads: a failure stops everyone).
         let mut co = vec![0i64; p * p];
-        for s in mine {
-            for t in s.set.trials() {
-                for &a in &t.observed {
-                    for &b in &t.observed {
-                        co[a * p + b] += 1;
+        let (mut wmax, mut cmax) = (0.0f64, 0.0f64);
+        let mut chunk_weights: Vec<f64> = Vec::new();
+        let first_pass = mine.iter().try_for_each(|s| {
+            s.for_each_chunk(cb, &mut |set| {
+                for t in set.trials() {
+                    for &a in &t.observed {
+                        for &b in &t.observed {
+                            co[a * p + b] += 1;
+                        }
                     }
+                    cmax = t.block.iter().fold(cmax, |m, v| m.max(v.abs()));
                 }
-            }
-        }
+                wmax = set.weights().iter().copied().fold(wmax, f64::max);
+                chunk_weights.push(set.weights().iter().sum());
+                Ok(())
+            })
+        });
+        agree(world, first_pass)?;
         world.sum_i64(&mut co);
         let coobservation: Vec<Vec<usize>> = (0..p)
             .map(|a| (0..p).map(|b| co[a * p + b] as usize).collect())
@@ -188,17 +364,14 @@ impl ShardedMeanJob {
             .filter(|&[a, b]| co[a * p + b] == 0)
             .collect();
 
-        // Weight total: raw weights bounded by the largest one times N.
-        let wmax = mine
-            .iter()
-            .flat_map(|s| s.set.weights().iter().copied())
-            .fold(0.0f64, f64::max);
+        // Weight total, from the chunks' sums.
         let wmax = world.max_f64(wmax);
+        let cmax = world.max_f64(cmax);
         let wbits = ExactSum::magnitude_bits(wmax * n_trials as f64);
         let local = (|| {
             let mut acc = ExactSum::new(1, wbits);
-            for s in mine {
-                acc.add(&[s.set.weights().iter().sum::<f64>()])?;
+            for &w in &chunk_weights {
+                acc.add(&[w])?;
             }
             Ok(acc)
         })();
@@ -209,20 +382,45 @@ impl ShardedMeanJob {
             ));
         }
 
-        let x0 = self.start(world, p, total, mine)?;
+        let x0 = self.start(world, p, total, cmax, mine)?;
 
-        let parts: Vec<MaskedKarcherProblem> = mine
+        let held: Vec<Option<Vec<MaskedKarcherProblem>>> = mine
             .iter()
-            .map(|s| MaskedKarcherProblem::with_weight_total(&s.set, total))
+            .map(|s| match &s.source {
+                ShardSource::Held(sets) => Some(
+                    sets.iter()
+                        .map(|set| MaskedKarcherProblem::with_weight_total(set, total))
+                        .collect(),
+                ),
+                ShardSource::Streamed(_) => None,
+            })
             .collect();
+        let streamed = held.iter().any(Option::is_none);
         let problem = ShardedProblem {
             world,
-            parts,
+            shards: mine,
+            held,
+            total,
+            chunk_bytes: cb,
             p,
             free_pairs: free_pairs.clone(),
             bits: ExactSum::magnitude_bits(0.5 * p as f64 * LOG_RANGE * LOG_RANGE),
+            aborted: std::sync::atomic::AtomicBool::new(false),
+            error: std::sync::Mutex::new(None),
         };
-        let sol = lbfgs::minimize(&problem, &x0, &self.stop, observer).ok_or_else(|| {
+        let sol = lbfgs::minimize(&problem, &x0, &self.stop, observer);
+        if problem.aborted.load(std::sync::atomic::Ordering::SeqCst) {
+            let own = problem
+                .error
+                .lock()
+                .unwrap_or_else(|p| p.into_inner())
+                .take();
+            agree(world, own.map_or(Ok(()), Err))?;
+            return Err(LacunaError::Numerical(
+                "a shard could not be read again during the solve".into(),
+            ));
+        }
+        let sol = sol.ok_or_else(|| {
             LacunaError::Numerical(format!(
                 "starting point '{}' makes an observed sub-block singular",
                 self.init.name()
@@ -230,10 +428,12 @@ impl ShardedMeanJob {
         })?;
         let mut diagnostics = Diagnostics::from_solution(&sol, self.stop.tol);
         diagnostics.notes.push(format!(
-            "started from the {} rule; {} shards over {} process(es), each shard's cost and gradient summed exactly (fixed point), so the result does not depend on the number of processes or threads",
+            "started from the {} rule; {} shards over {} process(es){}, summed exactly per chunk of {} MiB of stack (fixed point), so the result does not depend on the number of processes or threads",
             self.init.name(),
             n_shards,
-            world.size()
+            world.size(),
+            if streamed { ", read again at every evaluation" } else { "" },
+            cb >> 20
         ));
         diagnostics.unconstrained_pairs = free_pairs.clone();
         diagnostics.completed_pairs = free_pairs.len();
@@ -254,6 +454,7 @@ impl ShardedMeanJob {
             shard_trials,
             rank_trials,
             coobservation,
+            streamed,
         })
     }
 
@@ -263,31 +464,36 @@ impl ShardedMeanJob {
         world: &dyn Collective,
         p: usize,
         total: f64,
+        cmax: f64,
         mine: &[LocalShard],
     ) -> Result<Mat> {
-        // Per channel: Σ ŵ ln C_aa and Σ ŵ (ŵ = w / total).
+        let cb = self.chunk_bytes;
+        // Per channel Σ ŵ ln C_aa and Σ ŵ; per pair Σ ŵ C_ab and Σ ŵ
+        // (ŵ = w / total), each chunk's float sums added exactly.
+        let len = 2 * p + 2 * p * p;
+        let bits = ExactSum::magnitude_bits(LOG_RANGE.max(cmax).max(1.0));
         let local = (|| {
-            let mut acc = ExactSum::new(2 * p, ExactSum::magnitude_bits(LOG_RANGE));
+            let mut acc = ExactSum::new(len, bits);
             for s in mine {
-                let mut row = vec![0.0; 2 * p];
-                for (t, &w) in s.set.trials().iter().zip(s.set.weights()) {
-                    let wi = w / total;
-                    for (a, &c) in t.observed.iter().enumerate() {
-                        row[c] += wi * t.block[(a, a)].ln();
-                        row[p + c] += wi;
+                s.for_each_chunk(cb, &mut |set| {
+                    let mut row = vec![0.0; len];
+                    for (t, &w) in set.trials().iter().zip(set.weights()) {
+                        let wi = w / total;
+                        for (a, &ca) in t.observed.iter().enumerate() {
+                            row[ca] += wi * t.block[(a, a)].ln();
+                            row[p + ca] += wi;
+                            for (b, &cb) in t.observed.iter().enumerate() {
+                                row[2 * p + ca * p + cb] += wi * t.block[(a, b)];
+                                row[2 * p + p * p + ca * p + cb] += wi;
+                            }
+                        }
                     }
-                }
-                acc.add(&row)?;
+                    acc.add(&row)
+                })?;
             }
             Ok(acc)
         })();
-        let v = reduce_exact(
-            world,
-            local,
-            2 * p,
-            ExactSum::magnitude_bits(LOG_RANGE),
-            "the starting point",
-        )?;
+        let v = reduce_exact(world, local, len, bits, "the starting point")?;
         let var: Vec<f64> = (0..p)
             .map(|c| {
                 if v[p + c] > 0.0 {
@@ -304,33 +510,13 @@ impl ShardedMeanJob {
                 Mat::identity(p, p) * g
             }
             InitRule::AvailableCase => {
-                // Σ ŵ C_ab and Σ ŵ per pair, scaled by the largest |entry|.
-                let cmax = mine
-                    .iter()
-                    .flat_map(|s| s.set.trials().iter().flat_map(|t| t.block.iter().copied()))
-                    .fold(0.0f64, |m, v| m.max(v.abs()));
-                let bits = ExactSum::magnitude_bits(world.max_f64(cmax).max(1.0));
-                let local = (|| {
-                    let mut acc = ExactSum::new(2 * p * p, bits);
-                    for s in mine {
-                        let mut row = vec![0.0; 2 * p * p];
-                        for (t, &w) in s.set.trials().iter().zip(s.set.weights()) {
-                            let wi = w / total;
-                            for (a, &ca) in t.observed.iter().enumerate() {
-                                for (b, &cb) in t.observed.iter().enumerate() {
-                                    row[ca * p + cb] += wi * t.block[(a, b)];
-                                    row[p * p + ca * p + cb] += wi;
-                                }
-                            }
-                        }
-                        acc.add(&row)?;
-                    }
-                    Ok(acc)
-                })();
-                let v = reduce_exact(world, local, 2 * p * p, bits, "the starting point")?;
                 let avg = Mat::from_fn(p, p, |a, b| {
-                    let w = v[p * p + a * p + b];
-                    if w > 0.0 { v[a * p + b] / w } else { 0.0 }
+                    let w = v[2 * p + p * p + a * p + b];
+                    if w > 0.0 {
+                        v[2 * p + a * p + b] / w
+                    } else {
+                        0.0
+                    }
                 });
                 // As InitRule::AvailableCase: floor the spectrum at 1e-3 of
                 // the mean variance (common practice, no source).

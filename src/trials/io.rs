@@ -268,6 +268,23 @@ pub fn read_weights(path: &Path, n: usize) -> Result<Vec<f64>> {
 }
 
 /// Reads the `(N, p)` shape of a stack from its header alone.
+/// Trials, channels and where the data start, for a stack that can be read
+/// trial by trial (little-endian float64, C order); other layouts are refused.
+pub fn streamable_stack(path: &Path) -> Result<(usize, usize, usize)> {
+    let (n, p, h) = stack_shape(path)?;
+    if h.descr != "<f8" || h.fortran {
+        return Err(format_err(
+            path,
+            format!(
+                "reading trial by trial (--stream) needs a little-endian float64 stack in C order, found {}{}; convert it with numpy.save(path, numpy.ascontiguousarray(a, dtype='<f8'))",
+                h.descr,
+                if h.fortran { " in Fortran order" } else { "" }
+            ),
+        ));
+    }
+    Ok((n, p, h.data_start))
+}
+
 fn stack_shape(path: &Path) -> Result<(usize, usize, npy::NpyHeader)> {
     use std::io::Read;
     let read_err = |source| LacunaError::Read {
@@ -330,6 +347,19 @@ fn stream_trials(
     n: usize,
     p: usize,
     data_start: usize,
+    observed_of: impl FnMut(usize, &[f64]) -> Vec<usize>,
+) -> Result<Vec<Trial>> {
+    read_trial_range(path, p, data_start, 0..n, observed_of)
+}
+
+/// Reads trials `range` of a little-endian C-order float64 stack whose data
+/// start at byte `data_start`; `observed_of(i, diagonal)` gets the trial's
+/// index in the whole stack.
+pub fn read_trial_range(
+    path: &Path,
+    p: usize,
+    data_start: usize,
+    range: std::ops::Range<usize>,
     mut observed_of: impl FnMut(usize, &[f64]) -> Vec<usize>,
 ) -> Result<Vec<Trial>> {
     use std::io::{BufReader, Read, Seek, SeekFrom};
@@ -339,12 +369,14 @@ fn stream_trials(
     };
     let f = std::fs::File::open(path).map_err(read_err)?;
     let mut r = BufReader::with_capacity(1 << 20, f);
-    r.seek(SeekFrom::Start(data_start as u64))
-        .map_err(read_err)?;
+    r.seek(SeekFrom::Start(
+        (data_start + range.start * p * p * 8) as u64,
+    ))
+    .map_err(read_err)?;
     let mut raw = vec![0u8; p * p * 8];
     let mut vals = vec![0f64; p * p];
-    let mut trials = Vec::with_capacity(n);
-    for i in 0..n {
+    let mut trials = Vec::with_capacity(range.len());
+    for i in range {
         r.read_exact(&mut raw).map_err(read_err)?;
         for (v, c) in vals.iter_mut().zip(raw.chunks_exact(8)) {
             *v = f64::from_le_bytes(c.try_into().expect("chunk of 8"));

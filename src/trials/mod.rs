@@ -348,6 +348,29 @@ impl TrialSet {
         self.trials
     }
 
+    /// Sets the weights of a part of a larger set (a shard's chunk): each
+    /// finite and non-negative, but all zero is allowed — the whole set's
+    /// weights were checked for that.
+    pub fn set_part_weights(&mut self, w: Vec<f64>) -> Result<()> {
+        if w.len() != self.trials.len() || w.iter().any(|v| !v.is_finite() || *v < 0.0) {
+            return Err(LacunaError::InvalidTrials {
+                source_name: "part weights".into(),
+                problems: vec![TrialProblem {
+                    kind: ProblemKind::Other,
+                    trial: None,
+                    channel: None,
+                    message: format!(
+                        "{} weights for {} trials, each finite and non-negative",
+                        w.len(),
+                        self.trials.len()
+                    ),
+                }],
+            });
+        }
+        self.weights = w;
+        Ok(())
+    }
+
     /// Replaces the weights (same rules as [`TrialSet::new`]: one per trial,
     /// finite, non-negative, not all zero); the blocks are untouched.
     pub fn set_weights(&mut self, w: Vec<f64>) -> Result<()> {

@@ -228,3 +228,129 @@ mod tests {
         assert!(!m("*.npy", "day1.npy.bak"));
     }
 }
+
+/// Stack bytes per chunk of trials read at once (and per part of a
+/// distributed evaluation): 32 MiB.
+pub const CHUNK_BYTES: usize = 32 << 20;
+
+/// Trials per chunk at `p` channels (at least one).
+pub fn chunk_trials(p: usize, chunk_bytes: usize) -> usize {
+    (chunk_bytes / (p * p * 8).max(1)).max(1)
+}
+
+/// One shard opened for reading in chunks: its header, mask and weights are
+/// held (N·p bytes and N numbers); the covariances are read on demand.
+#[derive(Debug, Clone)]
+pub struct ShardReader {
+    pub shard: Shard,
+    n: usize,
+    p: usize,
+    data_start: usize,
+    observed: Option<Vec<bool>>,
+    channels: Vec<String>,
+    weights: Option<Vec<f64>>,
+}
+
+impl ShardReader {
+    /// Opens a shard: the stack's header, the mask and the weights are read
+    /// and checked now; the covariances when a chunk is read.
+    pub fn open(shard: &Shard) -> Result<Self> {
+        let (n, p, data_start) = super::io::streamable_stack(&shard.covs)?;
+        let mask = match &shard.mask {
+            Some(m) => Some(super::io::read_mask(m, n, p)?),
+            None => None,
+        };
+        let weights = match &shard.weights {
+            Some(w) => Some(super::io::read_weights(w, n)?),
+            None => None,
+        };
+        let (observed, names) = match mask {
+            Some(m) => (Some(m.observed), m.channels),
+            None => (None, None),
+        };
+        Ok(ShardReader {
+            shard: shard.clone(),
+            n,
+            p,
+            data_start,
+            observed,
+            channels: names.unwrap_or_else(|| super::default_channel_names(p)),
+            weights,
+        })
+    }
+
+    pub fn len(&self) -> usize {
+        self.n
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.n == 0
+    }
+
+    pub fn channels(&self) -> &[String] {
+        &self.channels
+    }
+
+    /// Renames the channels (same count), as `--channels` does.
+    pub fn set_channel_names(&mut self, names: Vec<String>) -> Result<()> {
+        if names.len() != self.p {
+            return Err(LacunaError::Format {
+                path: self.shard.covs.clone(),
+                message: format!(
+                    "{} channel names for a stack of {} channels",
+                    names.len(),
+                    self.p
+                ),
+            });
+        }
+        self.channels = names;
+        Ok(())
+    }
+
+    /// The chunks of `chunk_bytes` of stack, as trial ranges in order.
+    pub fn chunks(&self, chunk_bytes: usize) -> Vec<std::ops::Range<usize>> {
+        let step = chunk_trials(self.p, chunk_bytes);
+        (0..self.n)
+            .step_by(step)
+            .map(|a| a..(a + step).min(self.n))
+            .collect()
+    }
+
+    /// Trials `range` as a validated trial set (their weights kept raw).
+    pub fn read(&self, range: std::ops::Range<usize>) -> Result<TrialSet> {
+        let p = self.p;
+        let trials = super::io::read_trial_range(
+            &self.shard.covs,
+            p,
+            self.data_start,
+            range.clone(),
+            |i, diag| match &self.observed {
+                Some(m) => (0..p).filter(|&c| m[i * p + c]).collect(),
+                None => (0..p).filter(|&c| !diag[c].is_nan()).collect(),
+            },
+        )?;
+        let mut set = TrialSet::new(
+            self.channels.clone(),
+            trials,
+            None,
+            &format!(
+                "{} (trials {}–{})",
+                self.shard.covs.display(),
+                range.start,
+                range.end.saturating_sub(1)
+            ),
+        )?;
+        if let Some(w) = &self.weights {
+            set.set_part_weights(w[range].to_vec())?;
+        }
+        Ok(set)
+    }
+
+    /// The whole shard's weights (raw; 1 each without a weights file).
+    pub fn weight_sum_and_max(&self) -> (f64, f64) {
+        match &self.weights {
+            Some(w) => (w.iter().sum(), w.iter().copied().fold(0.0, f64::max)),
+            None => (self.n as f64, if self.n > 0 { 1.0 } else { 0.0 }),
+        }
+    }
+}
