@@ -127,6 +127,28 @@ fn check_ranks_agree(d: &Dir, set: &TrialSet, n_shards: usize) {
         std::fs::read(&streamed).unwrap(),
         "--stream differs"
     );
+    // Nor does the thread count.
+    let one = d.path("mean-threads-1.npy");
+    let (code, _, err) = mpirun(
+        2,
+        &[
+            "--threads",
+            "1",
+            "mean",
+            "--covs",
+            &covs,
+            "--mask",
+            &masks,
+            "--out",
+            s(&one),
+        ],
+    );
+    assert_eq!(code, 0, "--threads 1: {err}");
+    assert_eq!(
+        means[0],
+        std::fs::read(&one).unwrap(),
+        "--threads 1 differs"
+    );
     // The single-process mean of the same trials (not under mpirun).
     let whole = d.path("whole.npy");
     let (code, _, err) = lacuna(&[

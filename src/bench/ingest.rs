@@ -55,7 +55,7 @@ pub fn generate(path: &Path) {
     );
 }
 
-fn peak_rss_mib() -> f64 {
+pub fn peak_rss_mib() -> f64 {
     std::fs::read_to_string("/proc/self/status")
         .ok()
         .and_then(|s| {

@@ -7,6 +7,7 @@
 
 mod compare;
 mod ingest;
+mod stream;
 mod throughput;
 
 use std::path::PathBuf;
@@ -71,7 +72,7 @@ fn parse() -> Args {
             }
             "--help" | "-h" => {
                 println!(
-                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|rare|hard|throughput] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--workers 1,2] [--file REC.bdf]\n\n\
+                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|rare|hard|throughput|stream] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--workers 1,2] [--file REC.bdf]\n\n\
                      karcher: full-data Karcher mean, default sizes 100x{{8,32,64,128}} and 10000x{{8,32,64,128}}\n\
                      masked:  airm-observed with 20% of trials missing 1-8 channels, default 10000x64\n\
                      compare: the whole compare pipeline on --size NxP (default 2000x32), per stage\n\
@@ -79,6 +80,7 @@ fn parse() -> Args {
                               read, then 2 s epochs with 8-30 Hz band-pass, detection and OAS; throughput and peak memory\n\
                      hard:    short windows (T = p + 8), condition 1e5, gain drift, every trial missing 1-6 channels; default 2000x{{32,64}}\n\
                      rare:    masked sets with channels observed in few trials, plain and preconditioned solver\n\
+                     stream:  the streamed masked mean (mean --stream) against held shards on a stack above 256 MiB, peak memory per run; default 2400x128\n\
                      throughput: re-centring and prediction trials/s (4 sessions, 2 classes, 20% of trials missing 1-8 channels); default 10000x{{32,64}}\n\
                      --reference PYTHON runs tests/reference/bench_reference.py with that interpreter on the same data\n\
                      --workers K,.. runs the reference once per process-pool size (default 1,2: one process, then both cores)\n\
@@ -97,6 +99,8 @@ fn parse() -> Args {
             vec![(2000, 32), (2000, 64)]
         } else if a.mode == "compare" {
             vec![(2000, 32)]
+        } else if a.mode.starts_with("stream") {
+            vec![(2400, 128)]
         } else if a.mode == "throughput" {
             vec![(10_000, 32), (10_000, 64)]
         } else {
@@ -349,6 +353,23 @@ fn main() {
         "compare" => {
             let (n, p) = args.sizes.first().copied().unwrap_or((2000, 32));
             compare::run(n, p);
+            return;
+        }
+        "stream" => {
+            let (n, p) = args.sizes.first().copied().unwrap_or((2400, 128));
+            stream::run(n, p, args.file.clone());
+            return;
+        }
+        "stream-generate" => {
+            let (n, p) = args.sizes.first().copied().expect("--size");
+            stream::generate(args.file.as_deref().expect("--file"), n, p);
+            return;
+        }
+        "stream-held" | "stream-streamed" => {
+            stream::measure(
+                args.file.as_deref().expect("--file"),
+                args.mode == "stream-streamed",
+            );
             return;
         }
         "throughput" => {
