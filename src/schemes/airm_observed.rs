@@ -118,11 +118,14 @@ fn step_term(c: f64) -> f64 {
 }
 
 /// Per-chunk partial sums: weighted whitened logs, cost, step-hint denominator.
-struct Partial {
-    logs: Mat,
+/// One evaluation task's sums: cost, step hint, the gradient of the groups
+/// it holds whole, and the k×k partials of groups split with other tasks.
+struct TaskSum {
     cost: f64,
     hint: f64,
     ok: bool,
+    grad: Option<Mat>,
+    split: Vec<(usize, Mat)>,
 }
 
 /// The masked cost over a trial set (with complete trials, the Karcher cost).
@@ -148,6 +151,11 @@ const CHUNK: usize = 4;
 /// Work items per parallel task in an evaluation (fixed, so results do not
 /// depend on the thread count).
 const ITEMS_PER_TASK: usize = 8;
+
+/// Tasks run at once before their sums are folded in (bounds the p×p
+/// accumulators alive at one time; fixed, so results do not depend on the
+/// thread count).
+const TASKS_PER_ROUND: usize = 64;
 
 impl<'a> MaskedKarcherProblem<'a> {
     /// Prepares the problem (groups trials by observation pattern).
@@ -283,27 +291,57 @@ impl SpdProblem for MaskedKarcherProblem<'_> {
         if factors.iter().any(Option::is_none) {
             return None;
         }
+        let p = self.size();
+        // Q_g = L_g⁻¹ W[o_g,:]: the group's rows of the whitened gradient map.
+        let q_of = |g: usize| {
+            let grp = &self.groups[g];
+            let l = factors[g].as_ref().expect("checked above");
+            let mut q = Mat::from_fn(grp.observed.len(), p, |a, j| w[(grp.observed[a], j)]);
+            solve_lower_in_place(l, &mut q);
+            q
+        };
         // Each task sums its items per group (consecutive items of one group
-        // share one partial), so one k×k partial per group and task stays
-        // alive rather than one per item (147 MB at N = 10 000, p = 64).
-        let batches = chunked(self.items.len(), ITEMS_PER_TASK, |r| {
-            let mut out: Vec<(usize, Partial)> = Vec::new();
-            for (g, range) in &self.items[r] {
+        // share one partial). A group whose trials all fall in the task (the
+        // usual case for the many small groups of incomplete trials) goes
+        // straight into the task's p×p gradient; only groups split across
+        // tasks keep a k×k partial for the reduction below. Tasks run in
+        // rounds of fixed size and are summed in task order, so at most one
+        // round's accumulators are alive (memory stays near the data's, not
+        // twice it) and the result does not depend on the thread count.
+        let n_tasks = self.items.len().div_ceil(ITEMS_PER_TASK);
+        let task = |t: usize| -> TaskSum {
+            let items =
+                &self.items[t * ITEMS_PER_TASK..((t + 1) * ITEMS_PER_TASK).min(self.items.len())];
+            let mut out = TaskSum {
+                cost: 0.0,
+                hint: 0.0,
+                ok: true,
+                grad: None,
+                split: Vec::new(),
+            };
+            let mut open: Option<(usize, Mat, bool)> = None;
+            let close = |out: &mut TaskSum, (g, logs, whole): (usize, Mat, bool)| {
+                if whole {
+                    let acc = out.grad.get_or_insert_with(|| Mat::zeros(p, p));
+                    add_congruence_t(acc, &q_of(g), &logs, -1.0);
+                } else {
+                    out.split.push((g, logs));
+                }
+            };
+            for (g, range) in items {
                 let grp = &self.groups[*g];
                 let l = factors[*g].as_ref().expect("checked above");
                 let k = grp.observed.len();
-                if out.last().is_none_or(|(last, _)| last != g) {
-                    out.push((
-                        *g,
-                        Partial {
-                            logs: Mat::zeros(k, k),
-                            cost: 0.0,
-                            hint: 0.0,
-                            ok: true,
-                        },
-                    ));
+                if open.as_ref().is_none_or(|(last, _, _)| last != g) {
+                    if let Some(done) = open.take() {
+                        close(&mut out, done);
+                    }
+                    open = Some((*g, Mat::zeros(k, k), range.start == 0));
                 }
-                let part = &mut out.last_mut().expect("pushed above").1;
+                let (_, logs, whole) = open.as_mut().expect("opened above");
+                if range.end < grp.trials.len() {
+                    *whole = false;
+                }
                 for &i in &grp.trials[range.clone()] {
                     let wi = self.weights[i];
                     if wi == 0.0 {
@@ -312,59 +350,61 @@ impl SpdProblem for MaskedKarcherProblem<'_> {
                     let e = sym_eigen(&whiten(l, &trials[i].block));
                     let (lo, hi) = (e.values[0], e.values[k - 1]);
                     if !(lo > 0.0) || !hi.is_finite() {
-                        part.ok = false;
+                        out.ok = false;
                         return out;
                     }
-                    let logs: Vec<f64> = e.values.iter().map(|v| v.ln()).collect();
-                    part.cost += 0.5 * wi * logs.iter().map(|v| v * v).sum::<f64>();
-                    part.hint += wi * step_term(hi / lo);
-                    let scaled: Vec<f64> = logs.iter().map(|v| wi * v).collect();
-                    add_rebuild(&mut part.logs, &e.vectors, &scaled);
+                    let lg: Vec<f64> = e.values.iter().map(|v| v.ln()).collect();
+                    out.cost += 0.5 * wi * lg.iter().map(|v| v * v).sum::<f64>();
+                    out.hint += wi * step_term(hi / lo);
+                    let scaled: Vec<f64> = lg.iter().map(|v| wi * v).collect();
+                    add_rebuild(logs, &e.vectors, &scaled);
                 }
             }
-            out
-        });
-        // Reduce per group in a fixed order.
-        let mut sums: Vec<Option<Mat>> = vec![None; self.groups.len()];
-        let (mut cost, mut hint) = (0.0, 0.0);
-        for (g, part) in batches.into_iter().flatten() {
-            if !part.ok {
-                return None;
+            if let Some(done) = open.take() {
+                close(&mut out, done);
             }
-            cost += part.cost;
-            hint += part.hint;
-            match &mut sums[g] {
-                Some(s) => *s += part.logs,
-                slot => *slot = Some(part.logs),
+            out
+        };
+        let (mut cost, mut hint) = (0.0, 0.0);
+        let mut grad = Mat::zeros(p, p);
+        // Partials of split groups, reduced per group in task order.
+        let mut split: std::collections::BTreeMap<usize, Mat> = std::collections::BTreeMap::new();
+        for round in (0..n_tasks).step_by(TASKS_PER_ROUND) {
+            let sums: Vec<TaskSum> = (round..(round + TASKS_PER_ROUND).min(n_tasks))
+                .into_par_iter()
+                .map(task)
+                .collect();
+            for t in sums {
+                if !t.ok {
+                    return None;
+                }
+                cost += t.cost;
+                hint += t.hint;
+                if let Some(g) = t.grad {
+                    grad += g;
+                }
+                for (g, logs) in t.split {
+                    match split.get_mut(&g) {
+                        Some(s) => *s += logs,
+                        None => {
+                            split.insert(g, logs);
+                        }
+                    }
+                }
             }
         }
         // Whitened gradient: Wᵀ ∇F W = −Σ_g Q_gᵀ B_g Q_g with Q_g = L_g⁻¹ W[o_g,:].
         // Q_g has orthonormal rows (Q_g Q_gᵀ = I), so this sum stays accurate
         // when X is ill-conditioned, unlike forming ∇F and multiplying by W.
-        let p = self.size();
-        // Groups are summed in fixed chunks of 16, in order (thread-count independent).
-        let jobs: Vec<(Option<Mat>, &Option<Mat>, &PatternGroup)> = sums
-            .into_iter()
-            .zip(factors.iter())
-            .zip(self.groups.iter())
-            .map(|((b, l), g)| (b, l, g))
-            .collect();
+        // Split groups are summed in fixed chunks of 16, in group order.
+        let jobs: Vec<(usize, Mat)> = split.into_iter().collect();
         let parts = chunked(jobs.len(), 16, |r| {
             let mut acc = Mat::zeros(p, p);
-            for (b, l, grp) in &jobs[r] {
-                let l = l.as_ref().expect("checked above");
-                let mut q = Mat::from_fn(grp.observed.len(), p, |a, j| w[(grp.observed[a], j)]);
-                solve_lower_in_place(l, &mut q);
-                add_congruence_t(
-                    &mut acc,
-                    &q,
-                    b.as_ref().expect("every group has a chunk"),
-                    -1.0,
-                );
+            for (g, b) in &jobs[r] {
+                add_congruence_t(&mut acc, &q_of(*g), b, -1.0);
             }
             acc
         });
-        let mut grad = Mat::zeros(p, p);
         for part in parts {
             grad += part;
         }
