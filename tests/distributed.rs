@@ -240,3 +240,63 @@ fn mpirun_without_the_feature_is_refused() {
         .unwrap();
     assert_eq!(out.status.code(), Some(0));
 }
+
+// Hostile input to `mean --stream`: the output is one of the shards, a shard
+// holds a non-finite value, a shard is not float64 C-order — each refused
+// naming the file, with nothing written.
+#[test]
+fn stream_refuses_bad_shards_and_writes_nothing() {
+    use common::{Dir, lacuna, s};
+    let d = Dir::new("dist-stream-bad");
+    let set = simulated(40, 6, 14);
+    let a = d.write("a.npy", &lacuna::trials::io::encode_stack_with_nan(&set));
+    let before = std::fs::read(&a).unwrap();
+    let (code, _, err) = lacuna(&["mean", "--stream", "--covs", s(&a), "--out", s(&a)]);
+    assert_eq!(code, 2, "{err}");
+    assert_eq!(std::fs::read(&a).unwrap(), before);
+
+    let mut bytes = before.clone();
+    let at = bytes.len() - 8;
+    bytes[at..].copy_from_slice(&f64::INFINITY.to_le_bytes());
+    let bad = d.write("bad.npy", &bytes);
+    let out = d.path("m.npy");
+    let (code, _, err) = lacuna(&[
+        "mean",
+        "--stream",
+        "--covs",
+        s(&a),
+        s(&bad),
+        "--out",
+        s(&out),
+    ]);
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("bad.npy"), "{err}");
+    assert!(!out.exists());
+
+    // float32 stacks are read whole by `mean`, but not streamed.
+    let p = set.n_channels();
+    let f32s: Vec<u8> = lacuna::trials::io::nan_stack(&set)
+        .iter()
+        .flat_map(|v| (*v as f32).to_le_bytes())
+        .collect();
+    let mut npy: Vec<u8> = Vec::new();
+    let header = format!(
+        "{{'descr': '<f4', 'fortran_order': False, 'shape': ({}, {p}, {p}), }}",
+        set.len()
+    );
+    let pad = 64 - (10 + header.len() + 1) % 64;
+    npy.extend_from_slice(b"\x93NUMPY\x01\x00");
+    npy.extend_from_slice(&((header.len() + pad + 1) as u16).to_le_bytes());
+    npy.extend_from_slice(header.as_bytes());
+    npy.extend(std::iter::repeat_n(b' ', pad));
+    npy.push(b'\n');
+    npy.extend_from_slice(&f32s);
+    let f4 = d.write("f4.npy", &npy);
+    let (code, _, err) = lacuna(&["mean", "--stream", "--covs", s(&f4), "--out", s(&out)]);
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("f4.npy") && err.contains("float64"), "{err}");
+    assert!(!out.exists());
+    // …and the same file without --stream is accepted.
+    let (code, _, err) = lacuna(&["mean", "--covs", s(&f4), "--out", s(&out), "--quiet"]);
+    assert_eq!(code, 0, "{err}");
+}
