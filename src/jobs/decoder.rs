@@ -11,8 +11,8 @@ use serde::{Deserialize, Serialize};
 
 use super::MeanJob;
 use crate::error::{LacunaError, Result};
-use crate::select::{folds, matching_blocks};
-use crate::spd::{Mat, airm_distance};
+use crate::select::folds;
+use crate::spd::Mat;
 use crate::trials::TrialSet;
 
 /// Format version of model files.
@@ -196,16 +196,64 @@ impl Model {
             .collect::<Result<_>>()?;
         let means = self.mean_matrices()?;
         use rayon::prelude::*;
+        use std::collections::BTreeMap;
+        // Per observation pattern and class, once: the channels compared (in
+        // the model's order), where they sit in the trial's block, and the
+        // Cholesky factor of the mean's sub-block on them.
+        let mut slots: BTreeMap<&[usize], usize> = BTreeMap::new();
+        for t in set.trials() {
+            let next = slots.len();
+            slots.entry(t.observed.as_slice()).or_insert(next);
+        }
+        let mut patterns: Vec<&[usize]> = vec![&[]; slots.len()];
+        for (o, &k) in &slots {
+            patterns[k] = o;
+        }
+        type Compared = Option<(Vec<usize>, Option<Mat>)>;
+        let prepared: Vec<Vec<Compared>> = patterns
+            .par_iter()
+            .map(|observed| {
+                // (model channel, position in the trial's block), model order.
+                let mut order: Vec<(usize, usize)> = observed
+                    .iter()
+                    .enumerate()
+                    .map(|(r, &c)| (at[c], r))
+                    .collect();
+                order.sort_unstable();
+                means
+                    .iter()
+                    .map(|(m, est)| {
+                        let kept: Vec<(usize, usize)> = order
+                            .iter()
+                            .copied()
+                            .filter(|(c, _)| est.contains(c))
+                            .collect();
+                        if kept.is_empty() {
+                            return None;
+                        }
+                        let o: Vec<usize> = kept.iter().map(|&(c, _)| c).collect();
+                        let pos: Vec<usize> = kept.iter().map(|&(_, r)| r).collect();
+                        Some((
+                            pos,
+                            crate::spd::kernels::cholesky(&crate::spd::sub_block(m, &o)),
+                        ))
+                    })
+                    .collect()
+            })
+            .collect();
         set.trials()
             .par_iter()
             .enumerate()
             .map(|(i, t)| {
-                // The trial in the model's channel order.
-                let trial = t.remapped(&at);
-                let distances: Vec<f64> = means
+                let compared = &prepared[slots[t.observed.as_slice()]];
+                let distances: Vec<f64> = compared
                     .iter()
-                    .map(|(m, est)| match matching_blocks(m, Some(est), &trial) {
-                        Some((a, b)) => airm_distance(&a, &b),
+                    .map(|c| match c {
+                        Some((pos, Some(l))) => crate::spd::distance::airm_distance_with_factor(
+                            l,
+                            &crate::spd::sub_block(&t.block, pos),
+                        ),
+                        Some((_, None)) => f64::NAN,
                         None => f64::INFINITY,
                     })
                     .collect();
