@@ -300,3 +300,40 @@ fn stream_refuses_bad_shards_and_writes_nothing() {
     let (code, _, err) = lacuna(&["mean", "--covs", s(&f4), "--out", s(&out), "--quiet"]);
     assert_eq!(code, 0, "{err}");
 }
+
+// Common practice, no source: weights travel with their trials. Shards with
+// weights — one chunk weighing zero throughout — give the weighted mean of
+// the whole set (to rounding; can fail if a chunk's weights were dropped,
+// renormalised locally, or refused for summing to zero).
+#[test]
+fn weighted_shards_give_the_weighted_mean() {
+    let mut set = simulated(200, 8, 15);
+    let w: Vec<f64> = (0..200)
+        .map(|i| if i < 12 { 0.0 } else { 0.25 + (i % 5) as f64 })
+        .collect();
+    set.set_weights(w).unwrap();
+    let whole = AirmObserved
+        .average(
+            &set,
+            &lacuna::SchemeOptions {
+                stop: StopRule {
+                    tol: 1e-11,
+                    max_iter: 500,
+                },
+                ..Default::default()
+            },
+        )
+        .unwrap();
+    // The first chunk of shard 0 (6 trials at p = 8) weighs nothing.
+    let shards = split(&set, &[70, 150]);
+    let r = job(InitRule::AvailableCase)
+        .run(&Local, set.channels(), 3, &shards, None)
+        .unwrap();
+    let d = airm_distance(&r.result.mean, &whole.mean);
+    assert!(d < 1e-9, "weighted: {d}");
+    // Unweighted, the mean differs clearly: the weights mattered.
+    let mut flat = set.clone();
+    flat.set_weights(vec![1.0; 200]).unwrap();
+    let plain = AirmObserved.average(&flat, &Default::default()).unwrap();
+    assert!(airm_distance(&plain.mean, &whole.mean) > 1e-3);
+}
