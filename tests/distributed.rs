@@ -45,6 +45,22 @@ fn split(set: &TrialSet, cuts: &[usize]) -> Vec<LocalShard> {
         .collect()
 }
 
+/// The single-set masked mean to gradient 1e-11 (the reference).
+fn whole_mean(set: &TrialSet) -> lacuna::MeanResult {
+    AirmObserved
+        .average(
+            set,
+            &lacuna::SchemeOptions {
+                stop: StopRule {
+                    tol: 1e-11,
+                    max_iter: 500,
+                },
+                ..Default::default()
+            },
+        )
+        .unwrap()
+}
+
 fn job(init: InitRule) -> ShardedMeanJob {
     let mut job = ShardedMeanJob::new(
         StopRule {
@@ -63,18 +79,7 @@ fn job(init: InitRule) -> ShardedMeanJob {
 #[test]
 fn sharded_mean_equals_the_mean_of_the_whole_set() {
     let set = simulated(300, 8, 2);
-    let whole = AirmObserved
-        .average(
-            &set,
-            &lacuna::SchemeOptions {
-                stop: StopRule {
-                    tol: 1e-11,
-                    max_iter: 500,
-                },
-                ..Default::default()
-            },
-        )
-        .unwrap();
+    let whole = whole_mean(&set);
     for init in [InitRule::AvailableCase, InitRule::Diagonal] {
         for cuts in [vec![], vec![100], vec![17, 150, 151, 299]] {
             let shards = split(&set, &cuts);
@@ -312,18 +317,7 @@ fn weighted_shards_give_the_weighted_mean() {
         .map(|i| if i < 12 { 0.0 } else { 0.25 + (i % 5) as f64 })
         .collect();
     set.set_weights(w).unwrap();
-    let whole = AirmObserved
-        .average(
-            &set,
-            &lacuna::SchemeOptions {
-                stop: StopRule {
-                    tol: 1e-11,
-                    max_iter: 500,
-                },
-                ..Default::default()
-            },
-        )
-        .unwrap();
+    let whole = whole_mean(&set);
     // The first chunk of shard 0 (6 trials at p = 8) weighs nothing.
     let shards = split(&set, &[70, 150]);
     let r = job(InitRule::AvailableCase)
