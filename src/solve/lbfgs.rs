@@ -75,6 +75,8 @@ pub fn minimize(
     let mut trace: Vec<IterRecord> = Vec::new();
     let mut step = 0.0;
     let mut iteration = 0;
+    // Lowest gradient norm so far and where (for the stall rule).
+    let mut lowest = (f64::INFINITY, 0);
     // The last iterate that was safely inside the cone, to fall back to.
     let mut previous: Option<(Mat, Evaluation)> = None;
     let reason = loop {
@@ -103,6 +105,12 @@ pub fn minimize(
         trace.push(rec);
         if gnorm <= rule.tol {
             break StopReason::Tolerance;
+        }
+        if gnorm < lowest.0 {
+            lowest = (gnorm, iteration);
+        }
+        if precond.is_some() && r < boundary::SUSPECT && iteration - lowest.1 >= boundary::STALL {
+            break StopReason::Boundary;
         }
         if iteration >= rule.max_iter {
             break StopReason::MaxIterations;
@@ -231,9 +239,10 @@ fn carry_over(
 }
 
 /// L-BFGS two-loop recursion: returns `-H g`. The initial inverse Hessian
-/// is `γ P`: `P` the problem's preconditioner (identity without one), `γ`
-/// = ⟨s, y⟩ / ⟨y, P y⟩ from the newest pair, or the problem's step hint
-/// (or 1) while the memory is empty.
+/// is `γ I` without a preconditioner (`γ` = ⟨s, y⟩ / ⟨y, y⟩ from the newest
+/// pair) and the preconditioner fitted band by band to the newest pair
+/// with one; while the memory is empty, the problem's step hint (or 1)
+/// times `P` (or `I`).
 fn two_loop(
     eval: &Evaluation,
     memory: &VecDeque<(Mat, Mat, f64)>,
@@ -246,11 +255,19 @@ fn two_loop(
         q -= y * a;
         alphas.push(a);
     }
+    // With a preconditioner the newest pair rescales it band by band
+    // (`Preconditioner::fitted_to`), which replaces the single factor γ.
+    let fitted = match (precond, memory.back()) {
+        (Some(p), Some((s, y, _))) => Some(p.fitted_to(s, y)),
+        _ => None,
+    };
+    let precond = fitted.as_ref().or(precond);
     let apply = |m: &Mat| match precond {
         Some(p) => p.apply(m),
         None => m.clone(),
     };
     let gamma = match memory.back() {
+        Some(_) if fitted.is_some() => 1.0,
         Some((s, y, _)) => frob(s, y) / frob(y, &apply(y)),
         None => eval.step_hint.unwrap_or(1.0),
     };
