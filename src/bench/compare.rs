@@ -5,6 +5,8 @@
 //! `lacuna mean` runs with its defaults (airm-observed to 1e-10) on the same
 //! trials: the ratio says what the whole comparison costs in masked means.
 
+use std::collections::BTreeMap;
+use std::sync::{Arc, Mutex};
 use std::time::Instant;
 
 use lacuna::jobs::{CompareJob, MeanJob};
@@ -30,9 +32,29 @@ pub fn run(n: usize, p: usize) {
         samples: Some(4 * p),
         ..CompareJob::default()
     };
+    // Heap peak per stage: the progress callback sees each stage start.
+    let stack_bytes = (n * p * p * 8) as f64;
+    let peaks: Arc<Mutex<(String, BTreeMap<String, usize>)>> = Arc::default();
+    let before = crate::heap::in_use();
+    crate::heap::reset_peak();
+    let seen = peaks.clone();
+    let progress: lacuna::jobs::compare::CompareProgress = Arc::new(move |stage: &str, _, _| {
+        let mut g = seen.lock().unwrap();
+        if g.0 != stage {
+            let peak = crate::heap::reset_peak();
+            let last = std::mem::replace(&mut g.0, stage.to_string());
+            let e = g.1.entry(last).or_default();
+            *e = (*e).max(peak);
+        }
+    });
     let t = Instant::now();
-    let cmp = job.run(set, None).unwrap();
+    let cmp = job.run(set, Some(progress)).unwrap();
     let all = t.elapsed().as_secs_f64();
+    let mut g = peaks.lock().unwrap();
+    let last = std::mem::take(&mut g.0);
+    let peak = crate::heap::reset_peak();
+    let e = g.1.entry(last).or_default();
+    *e = (*e).max(peak);
     println!(
         "compare on N = {n}, p = {p} ({} candidates, 30% of trials missing 1-4 channels, labels in two classes), {} threads",
         cmp.schemes.len(),
@@ -47,6 +69,18 @@ pub fn run(n: usize, p: usize) {
         "| reference: `mean` defaults (airm-observed, tol 1e-10, {} iterations) | {reference:.2} | 1 |",
         mean.result.diagnostics.iterations
     );
+    println!(
+        "\nheap peak per stage (the trial set and the reference mean's result held throughout: {:.1} MB before the run; input stack N·p²·8 = {:.1} MB):\n| stage | peak heap (MB) | × stack |\n|---|---|---|",
+        before as f64 / 1e6,
+        stack_bytes / 1e6
+    );
+    for (stage, peak) in g.1.iter().filter(|(k, _)| !k.is_empty()) {
+        println!(
+            "| {stage} | {:.1} | {:.2} |",
+            *peak as f64 / 1e6,
+            *peak as f64 / stack_bytes
+        );
+    }
     println!(
         "\nper candidate (all schemes once):\n| candidate | iterations | seconds |\n|---|---|---|"
     );

@@ -6,9 +6,13 @@
 //! machine they came from are written down in docs/performance.md.
 
 mod compare;
+mod heap;
 mod ingest;
 mod stream;
 mod throughput;
+
+#[global_allocator]
+static HEAP: heap::Counting = heap::Counting;
 
 use std::path::PathBuf;
 use std::process::Command;
