@@ -216,3 +216,53 @@ fn held_out_likelihood_picks_a_near_best_regulariser() {
     );
     assert_eq!(r.primary, "held-out-fit");
 }
+
+/// Removes wall-time fields (they differ between any two runs).
+fn without_timings(v: &mut serde_json::Value) {
+    match v {
+        serde_json::Value::Object(m) => {
+            m.retain(|k, _| !k.contains("seconds") && !k.contains("threads"));
+            m.values_mut().for_each(without_timings);
+        }
+        serde_json::Value::Array(a) => a.iter_mut().for_each(without_timings),
+        _ => {}
+    }
+}
+
+// GUIDE §3 (deterministic for a seed, whatever the thread count): every
+// unit of the comparison — candidates, dropout repeats, folds,
+// leave-one-out and bootstrap re-solves — is a function of its index
+// alone, so running them one at a time (large sets,
+// `select::SIDE_BY_SIDE_BYTES`, the same order as one thread) or side by
+// side (two threads) gives the same comparison, number for number.
+#[test]
+fn compare_is_the_same_one_unit_at_a_time_and_side_by_side() {
+    let mut rng = Rng::new(21);
+    let sigma = random_spd(6, 20.0, &mut rng);
+    let full: Vec<Mat> = (0..80)
+        .map(|_| sample_covariance(&sigma, 24, &mut rng))
+        .collect();
+    let observed: Vec<Vec<usize>> = (0..80)
+        .map(|i| (0..6).filter(|&c| i % 4 != 0 || c != i % 6).collect())
+        .collect();
+    let mut set = masked_set(&full, observed);
+    set.labels = Some((0..80).map(|i| ["a", "b"][i % 2].to_string()).collect());
+    let job = lacuna::jobs::CompareJob {
+        repeats: 4,
+        bootstrap: 3,
+        ..lacuna::jobs::CompareJob::default()
+    };
+    let run = |threads: usize| {
+        let pool = rayon::ThreadPoolBuilder::new()
+            .num_threads(threads)
+            .build()
+            .unwrap();
+        let cmp = pool.install(|| job.run(set.clone(), None)).unwrap();
+        let mut v = serde_json::to_value(&cmp).unwrap();
+        without_timings(&mut v);
+        v
+    };
+    let (one, two) = (run(1), run(2));
+    assert!(one["contributions"].is_array(), "contributions ran");
+    assert_eq!(one, two);
+}

@@ -108,49 +108,49 @@ pub fn contributions(
     let counts = set.coobservation_counts();
     let split = cost_split(set, mean);
     let total: f64 = split.iter().sum();
+    // Every re-solve holds its own copy of the trials (one at a time on
+    // large sets, crate::select::SIDE_BY_SIDE_BYTES).
+    let side_by_side = crate::select::side_by_side(set);
     let loo: Vec<Option<f64>> = if opts.leave_one_out && p > 2 {
-        (0..p)
-            .into_par_iter()
-            .map(|c| {
-                let rest: Vec<usize> = (0..p).filter(|&k| k != c).collect();
-                // Trials that observed only c have nothing left: leave them out.
-                let keep: Vec<usize> = (0..set.len())
-                    .filter(|&i| set.trials()[i].observed.iter().any(|&k| k != c))
-                    .collect();
-                let sub = if keep.len() == set.len() {
-                    set.without_channels(&[c]).ok()?
-                } else {
-                    set.select_trials(&keep).ok()?.without_channels(&[c]).ok()?
-                };
-                let start = crate::spd::sub_block(mean, &rest);
-                let o = SchemeOptions {
-                    warm_start: Some(std::sync::Arc::new(start.clone())),
-                    observer: None,
-                    starts: 1,
-                    ..opts.scheme_options.clone()
-                };
-                let r = AirmObserved.average(&sub, &o).ok()?;
-                Some(airm_distance(&r.mean, &start))
-            })
-            .collect()
-    } else {
-        vec![None; p]
-    };
-    let boot: Vec<Mat> = (0..opts.bootstrap)
-        .into_par_iter()
-        .filter_map(|b| {
-            let mut rng = Rng::new(opts.seed ^ (0xB007u64.wrapping_mul(b as u64 + 1)));
-            let idx: Vec<usize> = (0..set.len()).map(|_| rng.below(set.len())).collect();
-            let sub = set.select_trials(&idx).ok()?;
+        crate::select::map_units(p, side_by_side, |c| {
+            let rest: Vec<usize> = (0..p).filter(|&k| k != c).collect();
+            // Trials that observed only c have nothing left: leave them out.
+            let keep: Vec<usize> = (0..set.len())
+                .filter(|&i| set.trials()[i].observed.iter().any(|&k| k != c))
+                .collect();
+            let sub = if keep.len() == set.len() {
+                set.without_channels(&[c]).ok()?
+            } else {
+                set.select_trials(&keep).ok()?.without_channels(&[c]).ok()?
+            };
+            let start = crate::spd::sub_block(mean, &rest);
             let o = SchemeOptions {
-                warm_start: Some(std::sync::Arc::new(mean.clone())),
+                warm_start: Some(std::sync::Arc::new(start.clone())),
                 observer: None,
                 starts: 1,
                 ..opts.scheme_options.clone()
             };
-            AirmObserved.average(&sub, &o).ok().map(|r| r.mean)
+            let r = AirmObserved.average(&sub, &o).ok()?;
+            Some(airm_distance(&r.mean, &start))
         })
-        .collect();
+    } else {
+        vec![None; p]
+    };
+    let boot: Vec<Mat> = crate::select::map_units(opts.bootstrap, side_by_side, |b| {
+        let mut rng = Rng::new(opts.seed ^ (0xB007u64.wrapping_mul(b as u64 + 1)));
+        let idx: Vec<usize> = (0..set.len()).map(|_| rng.below(set.len())).collect();
+        let sub = set.select_trials(&idx).ok()?;
+        let o = SchemeOptions {
+            warm_start: Some(std::sync::Arc::new(mean.clone())),
+            observer: None,
+            starts: 1,
+            ..opts.scheme_options.clone()
+        };
+        AirmObserved.average(&sub, &o).ok().map(|r| r.mean)
+    })
+    .into_iter()
+    .flatten()
+    .collect();
     Ok((0..p)
         .map(|c| {
             let (variance_interval, correlation_sd) = if boot.len() >= 2 {

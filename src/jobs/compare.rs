@@ -234,16 +234,15 @@ impl CompareJob {
         let n_cand = candidates.len();
         say("schemes", 0, n_cand);
         let done = std::sync::atomic::AtomicUsize::new(0);
-        let results: Vec<(std::result::Result<MeanResult, String>, f64)> = candidates
-            .par_iter()
-            .map(|c| {
+        let results: Vec<(std::result::Result<MeanResult, String>, f64)> =
+            crate::select::map_units(n_cand, crate::select::side_by_side(&set), |k| {
+                let c = &candidates[k];
                 let t = Instant::now();
                 let r = c.run(&set).map_err(|e| e.to_string());
                 let d = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
                 say("schemes", d, n_cand);
                 (r, t.elapsed().as_secs_f64())
-            })
-            .collect();
+            });
         stage_seconds.insert("schemes".to_string(), t0.elapsed().as_secs_f64());
 
         let distances = distance_matrix(&candidates, &results, p);

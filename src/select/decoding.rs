@@ -2,7 +2,6 @@
 //! distances on each trial's observed block (Barachant, Bonnet, Congedo &
 //! Jutten 2012, IEEE Trans. Biomed. Eng. 59).
 
-use rayon::prelude::*;
 use serde::Serialize;
 
 use super::*;
@@ -38,52 +37,55 @@ pub fn decoding(
     }
     let chance = classes.iter().map(count).max().unwrap_or(0) as f64 / labels.len() as f64;
     let fs = folds(set.len(), opts.folds, opts.seed ^ 0xDEC0);
-    let per_fold: Vec<Vec<std::result::Result<f64, String>>> = fs
-        .par_iter()
-        .map(|test| {
-            candidates
-                .iter()
-                .map(|c| {
-                    let mut means = Vec::new();
-                    for (k, class) in classes.iter().enumerate() {
-                        let mut train: Vec<usize> = (0..set.len())
-                            .filter(|i| test.binary_search(i).is_err() && &labels[*i] == class)
-                            .collect();
-                        let cap = (opts.max_train / classes.len()).max(2);
-                        seeded_subset(
-                            &mut train,
-                            cap,
-                            opts.seed ^ 0xC1A5 ^ ((k as u64) << 8) ^ test[0] as u64,
-                        );
-                        let tr = set.select_trials(&train).map_err(|e| e.to_string())?;
-                        let m = c.run_loose(&tr).map_err(|e| e.to_string())?;
-                        means.push(m);
-                    }
-                    let mut right = 0;
-                    for &i in test {
-                        let t = &set.trials()[i];
-                        let mut best = (f64::INFINITY, 0);
-                        for (k, m) in means.iter().enumerate() {
-                            let Some((a, b)) = matching_blocks(
-                                &m.mean,
-                                m.diagnostics.estimated_channels.as_deref(),
-                                t,
-                            ) else {
-                                continue;
-                            };
-                            let d = airm_distance(&a, &b);
-                            if d < best.0 {
-                                best = (d, k);
-                            }
+    let unit = |u: usize| -> Vec<std::result::Result<f64, String>> {
+        let test = &fs[u];
+        candidates
+            .iter()
+            .map(|c| {
+                let mut means = Vec::new();
+                for (k, class) in classes.iter().enumerate() {
+                    let mut train: Vec<usize> = (0..set.len())
+                        .filter(|i| test.binary_search(i).is_err() && &labels[*i] == class)
+                        .collect();
+                    let cap = (opts.max_train / classes.len()).max(2);
+                    seeded_subset(
+                        &mut train,
+                        cap,
+                        opts.seed ^ 0xC1A5 ^ ((k as u64) << 8) ^ test[0] as u64,
+                    );
+                    let tr = set.select_trials(&train).map_err(|e| e.to_string())?;
+                    let m = c.run_loose(&tr).map_err(|e| e.to_string())?;
+                    means.push(m);
+                }
+                let mut right = 0;
+                for &i in test {
+                    let t = &set.trials()[i];
+                    let mut best = (f64::INFINITY, 0);
+                    for (k, m) in means.iter().enumerate() {
+                        let Some((a, b)) = matching_blocks(
+                            &m.mean,
+                            m.diagnostics.estimated_channels.as_deref(),
+                            t,
+                        ) else {
+                            continue;
+                        };
+                        let d = airm_distance(&a, &b);
+                        if d < best.0 {
+                            best = (d, k);
                         }
-                        right += usize::from(classes[best.1] == labels[i]);
                     }
-                    Ok(right as f64 / test.len().max(1) as f64)
-                })
-                .collect()
-        })
-        .inspect(|_| opts.step())
-        .collect();
+                    right += usize::from(classes[best.1] == labels[i]);
+                }
+                Ok(right as f64 / test.len().max(1) as f64)
+            })
+            .collect()
+    };
+    let per_fold: Vec<Vec<std::result::Result<f64, String>>> =
+        map_units(fs.len(), side_by_side(set), |u| {
+            let r = unit(u);
+            opts.step();
+            r
+        });
     let scores = candidates
         .iter()
         .enumerate()

@@ -2,7 +2,6 @@
 //! complete trials, each candidate's mean compared with the complete-data
 //! reference.
 
-use rayon::prelude::*;
 use serde::Serialize;
 
 use super::*;
@@ -38,7 +37,13 @@ pub fn simulated_dropout(
         .collect();
     let names: Vec<String> = s.iter().map(|&c| set.channels()[c].clone()).collect();
     let drop: Vec<usize> = (0..set.n_channels()).filter(|c| !s.contains(c)).collect();
-    let base = set.select_trials(&complete)?.without_channels(&drop)?;
+    let selected = set.select_trials(&complete)?;
+    // Dropping no channel would copy every block once more.
+    let base = if drop.is_empty() {
+        selected
+    } else {
+        selected.without_channels(&drop)?
+    };
     let reference = match opts.target {
         Target::Centre => crate::schemes::Karcher.average(&base, &SchemeOptions::default())?,
         Target::Population => {
@@ -65,51 +70,51 @@ pub fn simulated_dropout(
         .filter(|o| o.len() >= 2)
         .collect();
     let per_repeat = complete.len().min(opts.max_trials);
-    let runs: Vec<Vec<RunOutcome>> = (0..opts.repeats)
-        .into_par_iter()
-        .map(|r| {
-            let mut rng =
-                Rng::new(opts.seed ^ (0x9E37_79B9_7F4A_7C15u64.wrapping_mul(r as u64 + 1)));
-            // A random subset of the complete trials, each given a random pattern.
-            let mut idx: Vec<usize> = (0..base.len()).collect();
-            for i in (1..idx.len()).rev() {
-                idx.swap(i, rng.below(i + 1));
-            }
-            idx.truncate(per_repeat);
-            idx.sort_unstable();
-            let trials: Vec<Trial> = idx
-                .iter()
-                .map(|&i| {
-                    let t = &base.trials()[i];
-                    let o = if patterns.is_empty() {
-                        t.observed.clone()
-                    } else {
-                        patterns[rng.below(patterns.len())].clone()
-                    };
-                    Trial {
-                        block: crate::spd::sub_block(&t.block, &o),
-                        observed: o,
-                    }
-                })
-                .collect();
-            let weights = idx.iter().map(|&i| base.weights()[i]).collect();
-            let damaged =
-                match TrialSet::new(names.clone(), trials, Some(weights), "simulated dropout") {
-                    Ok(d) => d,
-                    Err(e) => return vec![Err(e.to_string()); candidates.len()],
+    let unit = |u: usize| -> Vec<RunOutcome> {
+        let mut rng = Rng::new(opts.seed ^ (0x9E37_79B9_7F4A_7C15u64.wrapping_mul(u as u64 + 1)));
+        // A random subset of the complete trials, each given a random pattern.
+        let mut idx: Vec<usize> = (0..base.len()).collect();
+        for i in (1..idx.len()).rev() {
+            idx.swap(i, rng.below(i + 1));
+        }
+        idx.truncate(per_repeat);
+        idx.sort_unstable();
+        let trials: Vec<Trial> = idx
+            .iter()
+            .map(|&i| {
+                let t = &base.trials()[i];
+                let o = if patterns.is_empty() {
+                    t.observed.clone()
+                } else {
+                    patterns[rng.below(patterns.len())].clone()
                 };
-            candidates
-                .iter()
-                .map(|c| {
-                    let m = c.run_loose(&damaged).map_err(|e| e.to_string())?;
-                    let est = m.diagnostics.estimated_channels.clone();
-                    let ch: Vec<usize> = est.clone().unwrap_or_else(|| (0..s.len()).collect());
-                    Ok((distance_on(&m.mean, &reference, &ch), est.map(|e| e.len())))
-                })
-                .collect()
-        })
-        .inspect(|_| opts.step())
-        .collect();
+                Trial {
+                    block: crate::spd::sub_block(&t.block, &o),
+                    observed: o,
+                }
+            })
+            .collect();
+        let weights = idx.iter().map(|&i| base.weights()[i]).collect();
+        let damaged = match TrialSet::new(names.clone(), trials, Some(weights), "simulated dropout")
+        {
+            Ok(d) => d,
+            Err(e) => return vec![Err(e.to_string()); candidates.len()],
+        };
+        candidates
+            .iter()
+            .map(|c| {
+                let m = c.run_loose(&damaged).map_err(|e| e.to_string())?;
+                let est = m.diagnostics.estimated_channels.clone();
+                let ch: Vec<usize> = est.clone().unwrap_or_else(|| (0..s.len()).collect());
+                Ok((distance_on(&m.mean, &reference, &ch), est.map(|e| e.len())))
+            })
+            .collect()
+    };
+    let runs: Vec<Vec<RunOutcome>> = map_units(opts.repeats, side_by_side(set), |u| {
+        let r = unit(u);
+        opts.step();
+        r
+    });
     let scores = candidates
         .iter()
         .enumerate()

@@ -1,7 +1,6 @@
 //! Held-out fit: K-fold over trials; each held-out trial's observed
 //! block scored against the training mean's matching sub-block.
 
-use rayon::prelude::*;
 use serde::Serialize;
 
 use super::*;
@@ -73,40 +72,41 @@ pub fn held_out_fit(
 ) -> Result<HeldOutFit> {
     let fs = folds(set.len(), opts.folds, opts.seed ^ 0xF01D);
     type FoldOutcome = std::result::Result<(Option<usize>, Vec<(f64, f64)>), String>;
-    let per_fold: Vec<Vec<FoldOutcome>> = fs
-        .par_iter()
-        .enumerate()
-        .map(|(f, test)| {
-            let mut train: Vec<usize> = (0..set.len())
-                .filter(|i| test.binary_search(i).is_err())
-                .collect();
-            seeded_subset(&mut train, opts.max_train, opts.seed ^ 0x7EA1 ^ f as u64);
-            let Ok(tr) = set.select_trials(&train) else {
-                return vec![Err("empty training set".into()); candidates.len()];
-            };
-            candidates
-                .iter()
-                .map(|c| {
-                    let m = c.run_loose(&tr).map_err(|e| e.to_string())?;
-                    let est = m.diagnostics.estimated_channels.clone();
-                    Ok((
-                        est.as_ref().map(Vec::len),
-                        test.iter()
-                            .filter_map(|&i| {
-                                let (a, b) =
-                                    matching_blocks(&m.mean, est.as_deref(), &set.trials()[i])?;
-                                Some((
-                                    fit_score(opts.criterion, &a, &b),
-                                    fit_score(opts.criterion.other(), &a, &b),
-                                ))
-                            })
-                            .collect::<Vec<(f64, f64)>>(),
-                    ))
-                })
-                .collect()
-        })
-        .inspect(|_| opts.step())
-        .collect();
+    let unit = |u: usize| -> Vec<FoldOutcome> {
+        let test = &fs[u];
+        let mut train: Vec<usize> = (0..set.len())
+            .filter(|i| test.binary_search(i).is_err())
+            .collect();
+        seeded_subset(&mut train, opts.max_train, opts.seed ^ 0x7EA1 ^ u as u64);
+        let Ok(tr) = set.select_trials(&train) else {
+            return vec![Err("empty training set".into()); candidates.len()];
+        };
+        candidates
+            .iter()
+            .map(|c| {
+                let m = c.run_loose(&tr).map_err(|e| e.to_string())?;
+                let est = m.diagnostics.estimated_channels.clone();
+                Ok((
+                    est.as_ref().map(Vec::len),
+                    test.iter()
+                        .filter_map(|&i| {
+                            let (a, b) =
+                                matching_blocks(&m.mean, est.as_deref(), &set.trials()[i])?;
+                            Some((
+                                fit_score(opts.criterion, &a, &b),
+                                fit_score(opts.criterion.other(), &a, &b),
+                            ))
+                        })
+                        .collect::<Vec<(f64, f64)>>(),
+                ))
+            })
+            .collect()
+    };
+    let per_fold: Vec<Vec<FoldOutcome>> = map_units(fs.len(), side_by_side(set), |u| {
+        let r = unit(u);
+        opts.step();
+        r
+    });
     let score_with = |pick: fn(&(f64, f64)) -> f64| -> Vec<Score> {
         candidates
             .iter()

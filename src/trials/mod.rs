@@ -301,6 +301,14 @@ impl TrialSet {
         })
     }
 
+    /// Bytes the trials' blocks take (`Σ k²·8`).
+    pub fn block_bytes(&self) -> usize {
+        self.trials
+            .iter()
+            .map(|t| t.observed.len() * t.observed.len() * 8)
+            .sum()
+    }
+
     /// Number of trials `N`.
     pub fn len(&self) -> usize {
         self.trials.len()
