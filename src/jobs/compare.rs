@@ -246,6 +246,13 @@ impl CompareJob {
         stage_seconds.insert("schemes".to_string(), t0.elapsed().as_secs_f64());
 
         let distances = distance_matrix(&candidates, &results, p);
+        // The protocols re-solve each candidate on parts of the set: start
+        // them from the candidate's mean on the whole set.
+        let warmed: Vec<Candidate> = candidates
+            .iter()
+            .zip(&results)
+            .map(|(c, (r, _))| c.warm_started(r.as_ref().ok().map(|m| &m.mean)))
+            .collect();
 
         // The selection protocols.
         let sel_opts = SelectOptions {
@@ -287,19 +294,19 @@ impl CompareJob {
                 None
             } else {
                 let o = with_steps("simulated dropout (repeats)", self.repeats);
-                Some(simulated_dropout(&set, &candidates, &o)?)
+                Some(simulated_dropout(&set, &warmed, &o)?)
             };
             stage_seconds.insert("simulated_dropout".into(), t.elapsed().as_secs_f64());
             let t = Instant::now();
             let o = with_steps("held-out fit (folds)", self.folds);
-            let fit = held_out_fit(&set, &candidates, &o)?;
+            let fit = held_out_fit(&set, &warmed, &o)?;
             stage_seconds.insert("held_out_fit".into(), t.elapsed().as_secs_f64());
             let t = Instant::now();
             let dec = if rank_deficient {
                 None
             } else {
                 let o = with_steps("decoding (folds)", self.folds);
-                decoding(&set, &candidates, &o)?
+                decoding(&set, &warmed, &o)?
             };
             stage_seconds.insert("decoding".into(), t.elapsed().as_secs_f64());
             let rec = recommend(dropout.as_ref(), Some(&fit), dec.as_ref(), self.target, p);

@@ -91,7 +91,17 @@ impl AveragingScheme for Karcher {
     }
     fn compute(&self, trials: &TrialSet, options: &SchemeOptions) -> Result<MeanResult> {
         trials.complete_blocks(self.name())?;
-        let (start, start_note) = starting_point(trials)?;
+        // A given warm start of the right size that is positive definite
+        // replaces the starting rule (re-solves on part of the data).
+        let warm = options
+            .warm_start
+            .as_deref()
+            .filter(|x| x.nrows() == trials.n_channels())
+            .filter(|x| crate::spd::kernels::cholesky(x).is_some());
+        let (start, start_note) = match warm {
+            Some(x) => (x.clone(), "started from the given warm start".to_string()),
+            None => starting_point(trials)?,
+        };
         let problem = MaskedKarcherProblem::new(trials);
         let obs = options.observer.clone();
         let observer = obs.as_deref().map(|f| f as &(dyn Fn(&IterRecord) + Sync));

@@ -74,8 +74,12 @@ pub struct SchemeOptions {
     /// Electrode positions on the unit sphere by channel name (for
     /// `spherical-spline`; by name so that channel subsets keep working).
     pub positions: Option<Arc<std::collections::BTreeMap<String, [f64; 3]>>>,
-    /// A starting point for `airm-observed` (re-solves after small changes
-    /// to the data: leave-one-channel-out, bootstrap).
+    /// A starting point for `airm-observed` and the schemes that end in a
+    /// Karcher mean of full-size matrices (re-solves after small changes to
+    /// the data: leave-one-channel-out, bootstrap, validation folds). Used
+    /// only when its size is the set's channel count (and, for the Karcher
+    /// schemes, it is positive definite); a scheme that averages in other
+    /// coordinates (`subspace`) ignores it.
     pub warm_start: Option<Arc<Mat>>,
     /// Regularise every observed block before averaging (regularise-then-average).
     pub regularize: Option<regularize::Regularizer>,

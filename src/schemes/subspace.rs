@@ -109,7 +109,13 @@ impl AveragingScheme for Subspace {
         }
         let names = (1..=r).map(|k| format!("component {k}")).collect();
         let inner = TrialSet::from_full(names, compressed, Some(weights))?;
-        let mut res = Karcher.average(&inner, options)?;
+        // The inner mean lives in the compressed basis: a full-size warm
+        // start would be in the wrong coordinates even when the sizes match.
+        let inner_options = SchemeOptions {
+            warm_start: None,
+            ..options.clone()
+        };
+        let mut res = Karcher.average(&inner, &inner_options)?;
         let back =
             &u * &res.mean * u.transpose() + (Mat::identity(p, p) - &u * u.transpose()) * sigma2;
         let mut notes = vec![format!(

@@ -24,6 +24,34 @@ impl Candidate {
         Ok(r)
     }
 
+    /// The same candidate with its solves started from `mean`, its own mean
+    /// on the whole set (None: as it was, when it failed there), for the validation protocols' re-solves on parts
+    /// of it (folds, dropout repeats). Only schemes whose solver takes a
+    /// start in the set's own coordinates get it (the masked mean and the
+    /// Karcher-based complete-trials, diagonal-loading and shrinkage); the
+    /// solve still runs to its tolerance, so the start changes the answer by
+    /// no more than that tolerance allows (docs/schemes.md).
+    pub fn warm_started(&self, mean: Option<&Mat>) -> Candidate {
+        let takes_start = matches!(
+            self.id,
+            SchemeId::AirmObserved
+                | SchemeId::CompleteTrials
+                | SchemeId::DiagonalLoading
+                | SchemeId::Shrinkage
+        );
+        Candidate {
+            label: self.label.clone(),
+            id: self.id,
+            scheme: self.id.scheme(),
+            options: SchemeOptions {
+                warm_start: mean
+                    .filter(|_| takes_start)
+                    .map(|m| std::sync::Arc::new(m.clone())),
+                ..self.options.clone()
+            },
+        }
+    }
+
     /// Runs it inside a validation protocol: iterative schemes stop at a
     /// relative gradient norm of max(tol, 1e-5). The protocols compare
     /// distances of order 1e-2 to 1 whose spread across repeats is of order
