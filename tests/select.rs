@@ -266,3 +266,62 @@ fn compare_is_the_same_one_unit_at_a_time_and_side_by_side() {
     assert!(one["contributions"].is_array(), "contributions ran");
     assert_eq!(one, two);
 }
+
+// Common practice, no source: a solve that runs to the same gradient test
+// lands at the same optimum (up to that test) wherever it starts, on the
+// convex Karcher cost and near the masked optimum. So the validation
+// protocols with each candidate warm-started from its own whole-set mean
+// give the cold-start scores up to the protocols' solver precision (1e-4,
+// docs/schemes.md).
+#[test]
+fn warm_started_protocols_give_the_cold_scores() {
+    let mut rng = Rng::new(33);
+    let sigma = random_spd(6, 30.0, &mut rng);
+    let full: Vec<Mat> = (0..90)
+        .map(|_| sample_covariance(&sigma, 24, &mut rng))
+        .collect();
+    let observed: Vec<Vec<usize>> = (0..90)
+        .map(|i| (0..6).filter(|&c| i % 3 != 0 || c != i % 6).collect())
+        .collect();
+    let set = masked_set(&full, observed);
+    let cands = default_candidates(&SchemeOptions::default(), &[], &LOADING_GRID);
+    let means: Vec<Option<Mat>> = cands
+        .iter()
+        .map(|c| c.run(&set).ok().map(|m| m.mean))
+        .collect();
+    let warm: Vec<_> = cands
+        .iter()
+        .zip(&means)
+        .map(|(c, m)| c.warm_started(m.as_ref()))
+        .collect();
+    assert!(warm.iter().any(|c| c.options.warm_start.is_some()));
+    let opts = SelectOptions {
+        repeats: 4,
+        ..SelectOptions::default()
+    };
+    let pairs = [
+        (
+            held_out_fit(&set, &cands, &opts).unwrap().scores,
+            held_out_fit(&set, &warm, &opts).unwrap().scores,
+        ),
+        (
+            simulated_dropout(&set, &cands, &opts).unwrap().scores,
+            simulated_dropout(&set, &warm, &opts).unwrap().scores,
+        ),
+    ];
+    for (cold, warmed) in &pairs {
+        for (a, b) in cold.iter().zip(warmed) {
+            let (Some(x), Some(y)) = (a.spread, b.spread) else {
+                assert_eq!(a.spread.is_some(), b.spread.is_some(), "{}", a.candidate);
+                continue;
+            };
+            assert!(
+                (x.median - y.median).abs() <= 1e-4 * x.median.abs().max(1e-3),
+                "{}: {} cold, {} warm",
+                a.candidate,
+                x.median,
+                y.median
+            );
+        }
+    }
+}
