@@ -217,6 +217,20 @@ fn held_out_likelihood_picks_a_near_best_regulariser() {
     assert_eq!(r.primary, "held-out-fit");
 }
 
+/// `n` sample covariances (24 samples) of one 6-channel population of
+/// condition `cond`; every `every`-th trial misses one channel.
+fn six_channel_set(n: usize, cond: f64, every: usize, seed: u64) -> lacuna::TrialSet {
+    let mut rng = Rng::new(seed);
+    let sigma = random_spd(6, cond, &mut rng);
+    let full: Vec<Mat> = (0..n)
+        .map(|_| sample_covariance(&sigma, 24, &mut rng))
+        .collect();
+    let observed: Vec<Vec<usize>> = (0..n)
+        .map(|i| (0..6).filter(|&c| i % every != 0 || c != i % 6).collect())
+        .collect();
+    masked_set(&full, observed)
+}
+
 /// Removes wall-time fields (they differ between any two runs).
 fn without_timings(v: &mut serde_json::Value) {
     match v {
@@ -237,15 +251,7 @@ fn without_timings(v: &mut serde_json::Value) {
 // side (two threads) gives the same comparison, number for number.
 #[test]
 fn compare_is_the_same_one_unit_at_a_time_and_side_by_side() {
-    let mut rng = Rng::new(21);
-    let sigma = random_spd(6, 20.0, &mut rng);
-    let full: Vec<Mat> = (0..80)
-        .map(|_| sample_covariance(&sigma, 24, &mut rng))
-        .collect();
-    let observed: Vec<Vec<usize>> = (0..80)
-        .map(|i| (0..6).filter(|&c| i % 4 != 0 || c != i % 6).collect())
-        .collect();
-    let mut set = masked_set(&full, observed);
+    let mut set = six_channel_set(80, 20.0, 4, 21);
     set.labels = Some((0..80).map(|i| ["a", "b"][i % 2].to_string()).collect());
     let job = lacuna::jobs::CompareJob {
         repeats: 4,
@@ -275,15 +281,7 @@ fn compare_is_the_same_one_unit_at_a_time_and_side_by_side() {
 // docs/schemes.md).
 #[test]
 fn warm_started_protocols_give_the_cold_scores() {
-    let mut rng = Rng::new(33);
-    let sigma = random_spd(6, 30.0, &mut rng);
-    let full: Vec<Mat> = (0..90)
-        .map(|_| sample_covariance(&sigma, 24, &mut rng))
-        .collect();
-    let observed: Vec<Vec<usize>> = (0..90)
-        .map(|i| (0..6).filter(|&c| i % 3 != 0 || c != i % 6).collect())
-        .collect();
-    let set = masked_set(&full, observed);
+    let set = six_channel_set(90, 30.0, 3, 33);
     let cands = default_candidates(&SchemeOptions::default(), &[], &LOADING_GRID);
     let means: Vec<Option<Mat>> = cands
         .iter()
