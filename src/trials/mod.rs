@@ -111,9 +111,35 @@ impl TrialSet {
     /// not just the first.
     pub fn new(
         channels: Vec<String>,
+        trials: Vec<Trial>,
+        weights: Option<Vec<f64>>,
+        source_name: &str,
+    ) -> Result<Self> {
+        Self::build(channels, trials, weights, source_name, None)
+    }
+
+    /// A set made from an already validated set's trials (a selection, or
+    /// principal sub-blocks of full-rank blocks) whose ranks are known: the
+    /// blocks need no new check (no Cholesky factor, no eigenvalues per
+    /// trial — half an evaluation of the masked cost, paid by every fold
+    /// and re-solve before); names, emptiness and weights are checked as
+    /// for any set.
+    fn derived(
+        channels: Vec<String>,
+        trials: Vec<Trial>,
+        weights: Vec<f64>,
+        ranks: Vec<usize>,
+        source_name: &str,
+    ) -> Result<Self> {
+        Self::build(channels, trials, Some(weights), source_name, Some(ranks))
+    }
+
+    fn build(
+        channels: Vec<String>,
         mut trials: Vec<Trial>,
         weights: Option<Vec<f64>>,
         source_name: &str,
+        known_ranks: Option<Vec<usize>>,
     ) -> Result<Self> {
         let p = channels.len();
         let mut problems = Vec::new();
@@ -147,110 +173,119 @@ impl TrialSet {
                 });
             }
         }
-        let mut ranks = vec![0; trials.len()];
-        for (i, t) in trials.iter_mut().enumerate() {
-            if t.observed.is_empty() {
-                problems.push(TrialProblem {
-                    kind: ProblemKind::Other,
-                    trial: Some(i),
-                    channel: None,
-                    message: "no channel is observed".into(),
-                });
-                continue;
-            }
-            if t.observed.windows(2).any(|w| w[0] >= w[1]) || t.observed.iter().any(|&c| c >= p) {
-                problems.push(TrialProblem {
-                    kind: ProblemKind::Other,
-                    trial: Some(i),
-                    channel: None,
-                    message: "observed channel list is not increasing or out of range".into(),
-                });
-                continue;
-            }
-            let k = t.observed.len();
-            // Magnitudes whose products overflow cannot be computed with;
-            // say so instead of blaming rank or finiteness.
-            if let Some(idx) = t
-                .block
-                .iter()
-                .position(|v| v.is_finite() && v.abs() > MAX_ENTRY)
-            {
-                let (r, c) = (idx % k, idx / k);
-                problems.push(TrialProblem {
-                kind: ProblemKind::Other,
-                    trial: Some(i),
-                    channel: Some(name(t.observed[r])),
-                    message: format!(
-                        "value {:e} (with channel {}) is beyond the magnitude lacuna computes with (|x| ≤ 1e150); rescale the data (e.g. to µV² or V²)",
-                        t.block[(r, c)],
-                        name(t.observed[c])
-                    ),
-                });
-                continue;
-            }
-            match check_spd(&t.block) {
-                Ok(()) => {
-                    // Cholesky succeeds on some exactly singular blocks (the
-                    // last pivot is rounding); the rank is decided below from
-                    // the eigenvalues.
-                    t.block = crate::spd::symmetrize(&t.block);
-                    ranks[i] = k;
-                }
-                Err(SpdDefect::NotPositiveDefinite { row, .. }) => {
-                    let sym = crate::spd::symmetrize(&t.block);
-                    match psd_rank(&sym) {
-                        Ok(r) => {
-                            t.block = sym;
-                            ranks[i] = r;
+        let ranks = match known_ranks {
+            Some(r) => r,
+            None => {
+                let mut ranks = vec![0; trials.len()];
+                for (i, t) in trials.iter_mut().enumerate() {
+                    if t.observed.is_empty() {
+                        problems.push(TrialProblem {
+                            kind: ProblemKind::Other,
+                            trial: Some(i),
+                            channel: None,
+                            message: "no channel is observed".into(),
+                        });
+                        continue;
+                    }
+                    if t.observed.windows(2).any(|w| w[0] >= w[1])
+                        || t.observed.iter().any(|&c| c >= p)
+                    {
+                        problems.push(TrialProblem {
+                            kind: ProblemKind::Other,
+                            trial: Some(i),
+                            channel: None,
+                            message: "observed channel list is not increasing or out of range"
+                                .into(),
+                        });
+                        continue;
+                    }
+                    let k = t.observed.len();
+                    // Magnitudes whose products overflow cannot be computed with;
+                    // say so instead of blaming rank or finiteness.
+                    if let Some(idx) = t
+                        .block
+                        .iter()
+                        .position(|v| v.is_finite() && v.abs() > MAX_ENTRY)
+                    {
+                        let (r, c) = (idx % k, idx / k);
+                        problems.push(TrialProblem {
+                        kind: ProblemKind::Other,
+                            trial: Some(i),
+                            channel: Some(name(t.observed[r])),
+                            message: format!(
+                                "value {:e} (with channel {}) is beyond the magnitude lacuna computes with (|x| ≤ 1e150); rescale the data (e.g. to µV² or V²)",
+                                t.block[(r, c)],
+                                name(t.observed[c])
+                            ),
+                        });
+                        continue;
+                    }
+                    match check_spd(&t.block) {
+                        Ok(()) => {
+                            // Cholesky succeeds on some exactly singular blocks (the
+                            // last pivot is rounding); the rank is decided below from
+                            // the eigenvalues.
+                            t.block = crate::spd::symmetrize(&t.block);
+                            ranks[i] = k;
                         }
-                        Err(lo) => problems.push(TrialProblem {
-                            kind: if lo < 0.0 {
-                                ProblemKind::Indefinite
-                            } else {
-                                ProblemKind::Other
-                            },
+                        Err(SpdDefect::NotPositiveDefinite { row, .. }) => {
+                            let sym = crate::spd::symmetrize(&t.block);
+                            match psd_rank(&sym) {
+                                Ok(r) => {
+                                    t.block = sym;
+                                    ranks[i] = r;
+                                }
+                                Err(lo) => problems.push(TrialProblem {
+                                    kind: if lo < 0.0 {
+                                        ProblemKind::Indefinite
+                                    } else {
+                                        ProblemKind::Other
+                                    },
+                                    trial: Some(i),
+                                    channel: Some(name(t.observed[row])),
+                                    message: if lo.is_nan() || lo >= 0.0 {
+                                        "every observed channel has zero variance (no signal): mark them unobserved in the mask".to_string()
+                                    } else {
+                                        format!(
+                                            "observed block is indefinite beyond rounding: eigenvalue {lo:.3e} (the first failing Cholesky pivot is at this channel; observed channels: {}); a covariance is never indefinite — check how it was computed",
+                                            t.observed.iter().map(|&c| name(c)).collect::<Vec<_>>().join(", ")
+                                        )
+                                    },
+                                }),
+                            }
+                        }
+                        Err(SpdDefect::NonFinite { row, col }) => problems.push(TrialProblem {
+                            kind: ProblemKind::NonFinite,
                             trial: Some(i),
                             channel: Some(name(t.observed[row])),
-                            message: if lo.is_nan() || lo >= 0.0 {
-                                "every observed channel has zero variance (no signal): mark them unobserved in the mask".to_string()
-                            } else {
-                                format!(
-                                    "observed block is indefinite beyond rounding: eigenvalue {lo:.3e} (the first failing Cholesky pivot is at this channel; observed channels: {}); a covariance is never indefinite — check how it was computed",
-                                    t.observed.iter().map(|&c| name(c)).collect::<Vec<_>>().join(", ")
-                                )
-                            },
+                            message: format!("NaN or infinite value inside the observed block (with channel {}); mark the channel as unobserved in the mask or fix the value", name(t.observed[col])),
+                        }),
+                        Err(SpdDefect::NotSymmetric { relative, row }) => problems.push(TrialProblem {
+                            kind: ProblemKind::NotSymmetric,
+                            trial: Some(i),
+                            channel: Some(name(t.observed[row])),
+                            message: format!("matrix is not symmetric (relative asymmetry {relative:.2e} > 1e-10); largest mismatch in this channel's row"),
                         }),
                     }
                 }
-                Err(SpdDefect::NonFinite { row, col }) => problems.push(TrialProblem {
-                    kind: ProblemKind::NonFinite,
-                    trial: Some(i),
-                    channel: Some(name(t.observed[row])),
-                    message: format!("NaN or infinite value inside the observed block (with channel {}); mark the channel as unobserved in the mask or fix the value", name(t.observed[col])),
-                }),
-                Err(SpdDefect::NotSymmetric { relative, row }) => problems.push(TrialProblem {
-                    kind: ProblemKind::NotSymmetric,
-                    trial: Some(i),
-                    channel: Some(name(t.observed[row])),
-                    message: format!("matrix is not symmetric (relative asymmetry {relative:.2e} > 1e-10); largest mismatch in this channel's row"),
-                }),
+                {
+                    use rayon::prelude::*;
+                    let found: Vec<usize> = trials
+                        .par_iter()
+                        .zip(ranks.par_iter())
+                        .map(|(t, &r)| {
+                            if r == t.observed.len() && r > 0 {
+                                psd_rank(&t.block).unwrap_or(r)
+                            } else {
+                                r
+                            }
+                        })
+                        .collect();
+                    ranks = found;
+                }
+                ranks
             }
-        }
-        {
-            use rayon::prelude::*;
-            let found: Vec<usize> = trials
-                .par_iter()
-                .zip(ranks.par_iter())
-                .map(|(t, &r)| {
-                    if r == t.observed.len() && r > 0 {
-                        psd_rank(&t.block).unwrap_or(r)
-                    } else {
-                        r
-                    }
-                })
-                .collect();
-            ranks = found;
-        }
+        };
         let n = trials.len();
         let weights = match weights {
             None => vec![1.0; n],
@@ -503,7 +538,7 @@ impl TrialSet {
         for (k, &c) in keep.iter().enumerate() {
             new_index[c] = k;
         }
-        let trials = self
+        let trials: Vec<Trial> = self
             .trials
             .iter()
             .map(|t| {
@@ -518,12 +553,32 @@ impl TrialSet {
             })
             .collect();
         let channels = keep.iter().map(|&c| self.channels[c].clone()).collect();
-        let mut out = TrialSet::new(
-            channels,
-            trials,
-            Some(self.weights.clone()),
-            "after dropping channels",
-        )?;
+        // A principal sub-block of a full-rank block is full rank under the
+        // same rank rule (its eigenvalues interlace: the smallest cannot
+        // fall, the largest cannot rise, so it stays above k·ε·λ_max).
+        // Otherwise (a rank-deficient block, or nothing left) check afresh.
+        let full: Option<Vec<usize>> = trials
+            .iter()
+            .zip(self.trials.iter().zip(&self.ranks))
+            .map(|(new, (old, &r))| {
+                (r == old.observed.len() && !new.observed.is_empty()).then_some(new.observed.len())
+            })
+            .collect();
+        let mut out = match full {
+            Some(ranks) => TrialSet::derived(
+                channels,
+                trials,
+                self.weights.clone(),
+                ranks,
+                "after dropping channels",
+            )?,
+            None => TrialSet::new(
+                channels,
+                trials,
+                Some(self.weights.clone()),
+                "after dropping channels",
+            )?,
+        };
         out.labels = self.labels.clone();
         out.sessions = self.sessions.clone();
         Ok(out)
@@ -534,10 +589,12 @@ impl TrialSet {
     pub fn select_trials(&self, idx: &[usize]) -> Result<TrialSet> {
         let trials = idx.iter().map(|&i| self.trials[i].clone()).collect();
         let weights = idx.iter().map(|&i| self.weights[i]).collect();
-        let mut out = TrialSet::new(
+        let ranks = idx.iter().map(|&i| self.ranks[i]).collect();
+        let mut out = TrialSet::derived(
             self.channels.clone(),
             trials,
-            Some(weights),
+            weights,
+            ranks,
             "selected trials",
         )?;
         out.labels = self
@@ -639,6 +696,54 @@ mod tests {
             (((i + 1) * (j + 2) * (seed + 3)) % 7) as f64 / 7.0
         });
         &b * b.transpose() + Mat::identity(k, k)
+    }
+
+    // The ranks a selection or a channel drop carries over without checking
+    // the blocks again must be the ranks a fresh validation finds (the
+    // numerical-rank rule of numpy's matrix_rank: eigenvalues above
+    // k·ε·λ_max; interlacing keeps principal sub-blocks of full-rank blocks
+    // full rank). Blocks: full rank, rank 2 of 4 (a Gram matrix of two
+    // vectors), nearly singular (condition 1e12).
+    #[test]
+    fn derived_sets_keep_the_ranks_a_fresh_check_finds() {
+        let v = Mat::from_fn(4, 2, |i, j| (i + 2 * j + 1) as f64);
+        let low = &v * v.transpose();
+        let mut near = spd(4, 5);
+        let e = crate::spd::kernels::sym_eigen(&near);
+        near = e.apply(|x| if x == e.values[0] { x * 1e-12 } else { x });
+        let trials = vec![
+            Trial {
+                observed: vec![0, 1, 2, 3],
+                block: spd(4, 1),
+            },
+            Trial {
+                observed: vec![0, 1, 2, 3],
+                block: low,
+            },
+            Trial {
+                observed: vec![0, 1, 2, 3],
+                block: crate::spd::symmetrize(&near),
+            },
+            Trial {
+                observed: vec![1, 2, 3],
+                block: spd(3, 2),
+            },
+        ];
+        let set = TrialSet::new(default_channel_names(4), trials, None, "s").unwrap();
+        let fresh = |t: &TrialSet| {
+            TrialSet::new(t.channels().to_vec(), t.trials().to_vec(), None, "again").unwrap()
+        };
+        for derived in [
+            set.select_trials(&[3, 1, 1, 0, 2]).unwrap(),
+            set.without_channels(&[0]).unwrap(),
+            set.without_channels(&[2, 3]).unwrap(),
+        ] {
+            let again = fresh(&derived);
+            for i in 0..derived.len() {
+                assert_eq!(derived.rank(i), again.rank(i), "trial {i}");
+            }
+        }
+        assert_eq!(set.rank(1), 2);
     }
 
     // Common practice, no source: every defect is reported with its trial and channel.
