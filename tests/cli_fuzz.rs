@@ -173,7 +173,14 @@ fn numeric_options_never_panic_or_hang() {
             .into_iter()
             .map(String::from)
             .collect(),
-            vec!["--repeats", "--folds", "--bootstrap", "--tol", "--samples"],
+            vec![
+                "--repeats",
+                "--folds",
+                "--bootstrap",
+                "--leave-out-trials",
+                "--tol",
+                "--samples",
+            ],
             60,
         ),
     ];

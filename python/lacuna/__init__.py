@@ -608,6 +608,7 @@ def compare(
     folds: int = 5,
     bootstrap: int = 10,
     leave_out: bool = True,
+    leave_out_trials: int = 2000,
     validation: bool = True,
     seed: int = 0,
     tol: float = 1e-10,
@@ -627,7 +628,9 @@ def compare(
     contributions to the masked mean. Same defaults and numbers as the
     command line; ``positions`` maps channel names to (x, y, z) on the unit
     sphere (spherical-spline), ``loading_grid`` holds the λ values of
-    diagonal-loading and ``shrinkage`` the α of the shrinkage scheme.
+    diagonal-loading and ``shrinkage`` the α of the shrinkage scheme;
+    beyond ``leave_out_trials`` trials the leave-one-channel-out influence is
+    measured on one seeded random subset of that size.
 
     Returns
     -------
@@ -665,6 +668,7 @@ def compare(
         "folds": int(folds),
         "bootstrap": int(bootstrap),
         "no_leave_out": not leave_out,
+        "leave_out_trials": int(leave_out_trials),
         "no_validation": not validation,
         "seed": int(seed),
         "tol": float(tol),
@@ -672,7 +676,7 @@ def compare(
         "shrinkage": float(shrinkage),
         "drop_unobserved": bool(drop_unobserved),
     }
-    for key in ("samples", "repeats", "folds", "bootstrap", "seed"):
+    for key in ("samples", "repeats", "folds", "bootstrap", "seed", "leave_out_trials"):
         if job[key] is not None and job[key] < 0:
             raise LacunaError(f"{key} must not be negative, got {job[key]}")
     for key in ("tol", "effective_samples", "shrinkage"):

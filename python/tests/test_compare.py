@@ -67,3 +67,22 @@ def test_bad_settings_raise():
         lacuna.compare(stack, tol=float("nan"))
     with pytest.raises(lacuna.LacunaError, match="target must be"):
         lacuna.compare(stack, target="middle")
+
+
+def test_leave_out_on_a_seeded_subset():
+    # Beyond leave_out_trials the influence comes from a seeded subset of
+    # that size, and every channel's row says how many trials it used.
+    stack = np.load(DEMO / "covs.npy")
+    mask = np.load(DEMO / "mask.npy")
+    n = stack.shape[0]
+    opts = dict(FAST, leave_out=True, schemes=["airm-observed"], validation=False)
+    got = lacuna.compare(stack, mask, leave_out_trials=100, **opts)
+    assert n > 100
+    assert {c["leave_out_trials"] for c in got["contributions"]} == {100}
+    assert all(c["leave_out_influence"] > 0 for c in got["contributions"])
+    whole = lacuna.compare(stack, mask, leave_out_trials=n, **opts)
+    assert {c["leave_out_trials"] for c in whole["contributions"]} == {n}
+    with pytest.raises(lacuna.LacunaError, match="leave_out_trials must be between 100"):
+        lacuna.compare(stack, mask, leave_out_trials=99, **opts)
+    with pytest.raises(lacuna.LacunaError, match="leave_out_trials must not be negative"):
+        lacuna.compare(stack, mask, leave_out_trials=-1, **opts)

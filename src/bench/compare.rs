@@ -13,20 +13,28 @@ use lacuna::jobs::{CompareJob, MeanJob};
 use lacuna::simulate::rng::Rng;
 use lacuna::simulate::stacks::{masked_set, random_dropout, random_spd, sample_covariance};
 
-pub fn run(n: usize, p: usize) {
+/// The compare bench's trials: sample covariances (4p samples) of one
+/// population of condition 100, 30 % of trials missing 1–4 channels, labels
+/// in two alternating classes (so the decoding check runs).
+pub fn bench_set(n: usize, p: usize) -> lacuna::trials::TrialSet {
     let mut rng = Rng::new(7);
     let sigma = random_spd(p, 100.0, &mut rng);
     let full: Vec<_> = (0..n)
         .map(|_| sample_covariance(&sigma, 4 * p, &mut rng))
         .collect();
+    // Only the trial set stays, as in `lacuna compare` (the full matrices
+    // are dropped on return, before any heap is measured).
     let mut set = masked_set(&full, random_dropout(n, p, 0.3, 4, &mut rng));
-    // Only the trial set stays, as in `lacuna compare` (heap measured below).
-    drop(full);
     set.labels = Some(
         (0..n)
             .map(|i| if i % 2 == 0 { "a" } else { "b" }.to_string())
             .collect(),
     );
+    set
+}
+
+pub fn run(n: usize, p: usize) {
+    let set = bench_set(n, p);
     let t = Instant::now();
     let mean = MeanJob::default().run(set.clone(), None).unwrap();
     let reference = t.elapsed().as_secs_f64();

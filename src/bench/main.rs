@@ -8,6 +8,7 @@
 mod compare;
 mod heap;
 mod ingest;
+mod protocols;
 mod stream;
 mod throughput;
 
@@ -76,10 +77,12 @@ fn parse() -> Args {
             }
             "--help" | "-h" => {
                 println!(
-                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|rare|hard|throughput|stream] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--workers 1,2] [--file REC.bdf]\n\n\
+                    "lacuna-bench [--mode karcher|masked|kernels|ingest|compare|protocols|influence|rare|hard|throughput|stream] [--size NxP]... [--threads 1,2] [--reference PYTHON] [--workers 1,2] [--file REC.bdf]\n\n\
                      karcher: full-data Karcher mean, default sizes 100x{{8,32,64,128}} and 10000x{{8,32,64,128}}\n\
                      masked:  airm-observed with 20% of trials missing 1-8 channels, default 10000x64\n\
                      compare: the whole compare pipeline on --size NxP (default 2000x32), per stage\n\
+                     protocols: compare's protocols with warm against cold starts, derived trial sets against fresh validation; default 1000x64\n\
+                     influence: leave-one-channel-out influence on all trials against the default seeded subset; default 10000x32\n\
                      ingest:  a simulated 1-hour, 64-channel, 512 Hz BDF (generated once into --file, default in the temp folder)\n\
                               read, then 2 s epochs with 8-30 Hz band-pass, detection and OAS; throughput and peak memory\n\
                      hard:    short windows (T = p + 8), condition 1e5, gain drift, every trial missing 1-6 channels; default 2000x{{32,64}}\n\
@@ -357,6 +360,16 @@ fn main() {
         "compare" => {
             let (n, p) = args.sizes.first().copied().unwrap_or((2000, 32));
             compare::run(n, p);
+            return;
+        }
+        "protocols" => {
+            let (n, p) = args.sizes.first().copied().unwrap_or((1000, 64));
+            protocols::run(n, p);
+            return;
+        }
+        "influence" => {
+            let (n, p) = args.sizes.first().copied().unwrap_or((10_000, 32));
+            protocols::influence(n, p);
             return;
         }
         "stream" => {

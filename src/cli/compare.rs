@@ -83,6 +83,12 @@ pub struct CompareArgs {
     /// Skip leave-one-channel-out re-solves.
     #[arg(long)]
     no_leave_out: bool,
+    /// Most trials the leave-one-channel-out re-solves use: beyond that, the
+    /// influence is measured on one seeded random subset of this size (its
+    /// own mean against the subset without each channel), which bounds the
+    /// cost of the p re-solves on large sets.
+    #[arg(long, default_value_t = lacuna::diagnose::contribution::LEAVE_OUT_TRIALS, value_name = "N")]
+    leave_out_trials: usize,
     /// Skip the selection protocols (only the side-by-side table).
     #[arg(long)]
     no_validation: bool,
@@ -200,6 +206,7 @@ pub fn run(mut a: CompareArgs) -> Result<i32> {
         folds: a.folds,
         bootstrap: a.bootstrap,
         no_leave_out: a.no_leave_out,
+        leave_out_trials: a.leave_out_trials,
         no_validation: a.no_validation,
         seed: a.seed,
         tol: a.tol,

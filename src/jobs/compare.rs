@@ -32,6 +32,8 @@ pub mod ranges {
     pub const FOLDS: (usize, usize) = (2, 100);
     pub const REPEATS: (usize, usize) = (1, 10_000);
     pub const BOOTSTRAP: (usize, usize) = (0, 10_000);
+    /// Fewer trials make the paired leave-one-out difference mostly noise.
+    pub const LEAVE_OUT_TRIALS: (usize, usize) = (100, 100_000_000);
 }
 
 /// What to compare, with the CLI's defaults (`lacuna compare --help`).
@@ -55,6 +57,9 @@ pub struct CompareJob {
     pub bootstrap: usize,
     /// Skip the leave-one-channel-out re-solves.
     pub no_leave_out: bool,
+    /// Most trials the leave-one-channel-out re-solves use (a seeded
+    /// random subset beyond that).
+    pub leave_out_trials: usize,
     /// Skip the selection protocols.
     pub no_validation: bool,
     pub seed: u64,
@@ -81,6 +86,7 @@ impl Default for CompareJob {
             folds: 5,
             bootstrap: 10,
             no_leave_out: false,
+            leave_out_trials: crate::diagnose::contribution::LEAVE_OUT_TRIALS,
             no_validation: false,
             seed: 0,
             tol: 1e-10,
@@ -120,6 +126,11 @@ impl CompareJob {
         int_in("folds", self.folds, ranges::FOLDS)?;
         int_in("repeats", self.repeats, ranges::REPEATS)?;
         int_in("bootstrap", self.bootstrap, ranges::BOOTSTRAP)?;
+        int_in(
+            "leave_out_trials",
+            self.leave_out_trials,
+            ranges::LEAVE_OUT_TRIALS,
+        )?;
         if let Some(t) = self.samples {
             int_in("samples", t, super::mean::ranges::SAMPLES)?;
         }
@@ -331,6 +342,7 @@ impl CompareJob {
                     &m.mean,
                     &ContributionOptions {
                         leave_one_out: !self.no_leave_out,
+                        leave_out_trials: self.leave_out_trials,
                         bootstrap: self.bootstrap,
                         seed: self.seed,
                         scheme_options: base.clone(),

@@ -148,6 +148,12 @@ pub const COMPARE: &[Term] = &[
     },
     Term {
         file: "contributions.csv",
+        column: "leave_out_trials",
+        unit: "trials",
+        meaning: "trials the leave-one-out re-solve used: all of them, or on larger sets a seeded random subset of --leave-out-trials (then both means of the influence are that subset's)",
+    },
+    Term {
+        file: "contributions.csv",
         column: "variance",
         unit: UNIT2,
         meaning: "the channel's variance in the airm-observed mean",

@@ -407,7 +407,13 @@ pub fn render(compare: &Comparison, epochs: Option<&ExtractionRecord>) -> String
             &get(|c| c.leave_out_influence.unwrap_or(f64::NAN)),
             None,
             "Leave-one-out influence",
-            "distance when left out (dimensionless)",
+            &match cs.first().and_then(|c| c.leave_out_trials) {
+                Some(m) if m < compare.trials => format!(
+                    "distance when left out, {m} of {} trials (seeded subset)",
+                    compare.trials
+                ),
+                _ => "distance when left out (dimensionless)".to_string(),
+            },
             "#e08214",
         ));
         if interval.iter().any(Option::is_some) {

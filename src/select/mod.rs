@@ -322,7 +322,7 @@ fn score_of(label: &str, runs: impl Iterator<Item = RunOutcome>) -> Score {
 }
 
 /// Keeps a seeded random subset of at most `cap` of `v`, in increasing order.
-fn seeded_subset(v: &mut Vec<usize>, cap: usize, seed: u64) {
+pub(crate) fn seeded_subset(v: &mut Vec<usize>, cap: usize, seed: u64) {
     if v.len() <= cap {
         return;
     }
