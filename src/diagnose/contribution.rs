@@ -68,10 +68,10 @@ pub struct ContributionOptions {
 }
 
 /// Default cap on the trials of the leave-one-out re-solves. Measured on
-/// the compare bench's trials (N = 10 000, p = 32, `lacuna-bench --mode
-/// influence`; docs/performance.md): a 2 000-trial subset gave every
-/// channel's influence within −0.7 % to +1.6 % of the whole set's, in
-/// 6.7 s instead of 36.8 s.
+/// the compare bench's trials (N = 10 000, `lacuna-bench --mode influence`;
+/// docs/performance.md): a 2 000-trial subset gave every channel's
+/// influence within +0.5 % to +3.2 % of the whole set's at p = 64 (94 s
+/// instead of 403 s), −0.7 % to +1.6 % at p = 32 (6.7 s instead of 36.8 s).
 pub const LEAVE_OUT_TRIALS: usize = 2000;
 
 /// Per-trial cost split over channels: Σ ŵ_i ‖row_r(T_i)‖² per channel.
