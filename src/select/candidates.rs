@@ -25,8 +25,9 @@ impl Candidate {
     }
 
     /// The same candidate with its solves started from `mean`, its own mean
-    /// on the whole set (None: as it was, when it failed there), for the validation protocols' re-solves on parts
-    /// of it (folds, dropout repeats). Only schemes whose solver takes a
+    /// on the whole set (None: as it was, when it failed there), for the
+    /// validation protocols' re-solves on parts of it (folds, dropout
+    /// repeats). Only schemes whose solver takes a
     /// start in the set's own coordinates get it (the masked mean and the
     /// Karcher-based complete-trials, diagonal-loading and shrinkage); the
     /// solve still runs to its tolerance, so the start changes the answer by
