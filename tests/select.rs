@@ -327,14 +327,15 @@ fn warm_started_protocols_give_the_cold_scores() {
 
 // Leave-one-out on a seeded subset (diagnose::contribution::LEAVE_OUT_TRIALS):
 // beyond the cap, the influence is the paired difference on one subset of
-// that size. On a quarter of the trials it must track the whole set's
-// influence per channel within 35 % (measured 18–26 % over subset seeds
-// 11–14; the subset's own sampling error, which also pushes the distances
-// up a little; common practice, no source) and keep the designed order: the
-// channel seen in a quarter of the trials leans least, the one seen in half
-// next, the others most. Can fail: an unpaired difference (the whole set's
-// mean against a subset's re-solve) adds the subset's own sampling error,
-// of the order of the influence itself.
+// that size; a channel a uniform subset would leave few trials keeps all of
+// them, the other trials weighted up to stand for the ones not drawn. On
+// half the trials every channel's influence must be within 30 % of the
+// whole set's (measured 7–18 % over subset seeds 11–16: the subset's own
+// sampling error; common practice, no source), and the channel seen in 40
+// of 1 600 trials must lean least in both. Can fail (seeds 11–13, worst
+// channel): an unpaired difference (the whole set's mean against a subset's
+// re-solve) is off by 690–1 040 %; the rare channel's kept trials without
+// the weights by 83–99 %; a uniform draw that does not keep them by 41–112 %.
 #[test]
 fn leave_out_influence_on_a_seeded_subset_tracks_the_whole_set() {
     let mut rng = Rng::new(5);
@@ -343,11 +344,12 @@ fn leave_out_influence_on_a_seeded_subset_tracks_the_whole_set() {
     let full: Vec<Mat> = (0..n)
         .map(|_| sample_covariance(&sigma, 16, &mut rng))
         .collect();
-    // Channel 0 in a quarter of the trials, channel 1 in half, the rest in
-    // all but random dropouts: influences of clearly different sizes.
+    // Channel 0 in a quarter of the trials, channel 1 in half, channel 7 in
+    // one trial in 40 (20 expected in a uniform subset of 800: kept whole),
+    // the rest in all but random dropouts.
     let mut obs = lacuna::simulate::stacks::random_dropout(n, p, 0.4, 3, &mut rng);
     for (i, o) in obs.iter_mut().enumerate() {
-        o.retain(|&c| !(c == 0 && i % 4 != 0 || c == 1 && i % 2 != 0));
+        o.retain(|&c| !(c == 0 && i % 4 != 0 || c == 1 && i % 2 != 0 || c == 7 && i % 40 != 0));
     }
     let set = masked_set(&full, obs);
     let mean = AirmObserved
@@ -369,24 +371,24 @@ fn leave_out_influence_on_a_seeded_subset_tracks_the_whole_set() {
         .unwrap()
     };
     let whole = run(n);
-    let sub = run(400);
+    let sub = run(800);
     let infl = |cs: &[lacuna::diagnose::ChannelContribution]| -> Vec<f64> {
         cs.iter().map(|c| c.leave_out_influence.unwrap()).collect()
     };
     let (a, b) = (infl(&whole), infl(&sub));
     assert!(whole.iter().all(|c| c.leave_out_trials == Some(n)));
-    assert!(sub.iter().all(|c| c.leave_out_trials == Some(400)));
+    assert!(sub.iter().all(|c| c.leave_out_trials == Some(800)));
     let worst = a
         .iter()
         .zip(&b)
         .map(|(x, y)| (x - y).abs() / x)
         .fold(0.0f64, f64::max);
     assert!(
-        worst <= 0.35,
+        worst <= 0.30,
         "worst relative difference {worst}: {a:?} against {b:?}"
     );
     for v in [&a, &b] {
-        let rest = v[2..].iter().copied().fold(f64::INFINITY, f64::min);
-        assert!(v[0] < v[1] && v[1] < rest, "order lost: {v:?}");
+        let least = (0..p).min_by(|&i, &j| v[i].total_cmp(&v[j])).unwrap();
+        assert_eq!(least, 7, "the rare channel does not lean least: {v:?}");
     }
 }

@@ -12,14 +12,17 @@
 //! - `leave_out_influence`: the affine-invariant distance, on the other
 //!   channels, between the mean and the mean re-solved (warm-started)
 //!   without any observation of c; on sets of more than
-//!   `leave_out_trials` trials both means are those of one seeded random
-//!   subset of that size (a paired difference: the subset's own mean, then
-//!   the subset without c), so the p re-solves cost what they cost at that
-//!   size;
+//!   `leave_out_trials` trials both means are those of one seeded subset of
+//!   that size (a paired difference: the subset's own mean, then the subset
+//!   without c; rarely observed channels keep all their trials, the others
+//!   are drawn at random and weighted up), so the p re-solves cost what they
+//!   cost at that size;
 //! - bootstrap: trials resampled with replacement (seeded), the mean
 //!   re-solved each time (warm-started); the 5–95% interval of c's variance
 //!   and the median over other channels of the standard deviation of its
 //!   correlation with them.
+
+use std::borrow::Cow;
 
 use rayon::prelude::*;
 use serde::Serialize;
@@ -73,6 +76,47 @@ pub struct ContributionOptions {
 /// influence within +0.5 % to +3.2 % of the whole set's at p = 64 (94 s
 /// instead of 403 s), −0.7 % to +1.6 % at p = 32 (6.7 s instead of 36.8 s).
 pub const LEAVE_OUT_TRIALS: usize = 2000;
+
+/// A channel expected in fewer trials than this in a uniform subset keeps
+/// all its trials there: a random draw would leave a rarely observed
+/// channel a handful of trials (or none), and its influence mostly noise.
+pub const LEAVE_OUT_MIN_TRIALS: usize = 50;
+
+/// The leave-one-out subset as `(trials, weight factors)`, or None to use
+/// every trial (the set is within `cap`, or the kept trials alone would
+/// reach it). Every trial that observed a channel expected in fewer than
+/// [`LEAVE_OUT_MIN_TRIALS`] trials of a uniform subset of size `cap` is
+/// kept, with factor 1; the others are a seeded random draw up to `cap`,
+/// each standing for `(n − kept) / (cap − kept)` trials (the usual
+/// inverse-probability weight of a stratified sample), so the subset's
+/// weighted mix of trials is the whole set's in expectation. Without the
+/// factor, a rare channel's kept trials would weigh `n / cap` times too much
+/// and its influence with them (tests/select.rs: 1.8–2.0× at `n / cap` = 2).
+fn leave_out_subset(set: &TrialSet, cap: usize, seed: u64) -> Option<(Vec<usize>, Vec<f64>)> {
+    let n = set.len();
+    if n <= cap {
+        return None;
+    }
+    let mut seen = vec![0usize; set.n_channels()];
+    for t in set.trials() {
+        for &c in &t.observed {
+            seen[c] += 1;
+        }
+    }
+    // Expected count in a uniform subset: seen · cap / n.
+    let rare = |c: usize| seen[c] * cap < LEAVE_OUT_MIN_TRIALS * n;
+    let (kept, mut drawn): (Vec<usize>, Vec<usize>) =
+        (0..n).partition(|&i| set.trials()[i].observed.iter().any(|&c| rare(c)));
+    if kept.len() >= cap {
+        return None;
+    }
+    let stands_for = (n - kept.len()) as f64 / (cap - kept.len()) as f64;
+    crate::select::seeded_subset(&mut drawn, cap - kept.len(), seed ^ 0x100C);
+    let mut idx: Vec<(usize, f64)> = kept.into_iter().map(|i| (i, 1.0)).collect();
+    idx.extend(drawn.into_iter().map(|i| (i, stands_for)));
+    idx.sort_unstable_by_key(|&(i, _)| i);
+    Some(idx.into_iter().unzip())
+}
 
 /// Per-trial cost split over channels: Σ ŵ_i ‖row_r(T_i)‖² per channel.
 pub fn cost_split(set: &TrialSet, mean: &Mat) -> Vec<f64> {
@@ -130,28 +174,32 @@ pub fn contributions(
     let side_by_side = crate::select::side_by_side(set);
     // Beyond the cap, the influence is a paired difference on one seeded
     // subset: its own mean first (warm-started from `mean`), then the
-    // subset without each channel.
-    let (loo_set, loo_mean) = if opts.leave_one_out && p > 2 && set.len() > opts.leave_out_trials {
-        let mut idx: Vec<usize> = (0..set.len()).collect();
-        crate::select::seeded_subset(&mut idx, opts.leave_out_trials, opts.seed ^ 0x100C);
-        let sub = set.select_trials(&idx)?;
-        let o = SchemeOptions {
-            warm_start: Some(std::sync::Arc::new(mean.clone())),
-            observer: None,
-            starts: 1,
-            ..opts.scheme_options.clone()
-        };
-        let m = AirmObserved.average(&sub, &o)?.mean;
-        (std::borrow::Cow::Owned(sub), std::borrow::Cow::Owned(m))
+    // subset without each channel. A subset whose own mean fails leaves the
+    // influences unknown, as a failed re-solve does.
+    let loo_wanted = opts.leave_one_out && p > 2;
+    let subset = if loo_wanted {
+        leave_out_subset(set, opts.leave_out_trials, opts.seed)
     } else {
-        (
-            std::borrow::Cow::Borrowed(set),
-            std::borrow::Cow::Borrowed(mean),
-        )
+        None
     };
-    let loo_trials = (opts.leave_one_out && p > 2).then_some(loo_set.len());
-    let loo: Vec<Option<f64>> = if opts.leave_one_out && p > 2 {
-        let (set, mean) = (&*loo_set, &*loo_mean);
+    let base = match subset {
+        None => Some((Cow::Borrowed(set), Cow::Borrowed(mean))),
+        Some((idx, factor)) => set.select_trials(&idx).ok().and_then(|mut sub| {
+            let w = idx.iter().zip(&factor).map(|(&i, f)| set.weights()[i] * f);
+            sub.set_weights(w.collect()).ok()?;
+            let o = SchemeOptions {
+                warm_start: Some(std::sync::Arc::new(mean.clone())),
+                observer: None,
+                starts: 1,
+                ..opts.scheme_options.clone()
+            };
+            let m = AirmObserved.average(&sub, &o).ok()?.mean;
+            Some((Cow::Owned(sub), Cow::Owned(m)))
+        }),
+    }
+    .filter(|_| loo_wanted);
+    let loo_trials = base.as_ref().map(|(s, _)| s.len());
+    let loo: Vec<Option<f64>> = if let Some((set, mean)) = &base {
         crate::select::map_units(p, crate::select::side_by_side(set), |c| {
             let rest: Vec<usize> = (0..p).filter(|&k| k != c).collect();
             // Trials that observed only c have nothing left: leave them out.
