@@ -92,16 +92,16 @@ pub const LEAVE_OUT_MIN_TRIALS: usize = 50;
 /// weighted mix of trials is the whole set's in expectation. Without the
 /// factor, a rare channel's kept trials would weigh `n / cap` times too much
 /// and its influence with them (tests/select.rs: 1.8–2.0× at `n / cap` = 2).
-fn leave_out_subset(set: &TrialSet, cap: usize, seed: u64) -> Option<(Vec<usize>, Vec<f64>)> {
+/// `seen[c]`: the trials that observed channel c.
+fn leave_out_subset(
+    set: &TrialSet,
+    seen: &[usize],
+    cap: usize,
+    seed: u64,
+) -> Option<(Vec<usize>, Vec<f64>)> {
     let n = set.len();
     if n <= cap {
         return None;
-    }
-    let mut seen = vec![0usize; set.n_channels()];
-    for t in set.trials() {
-        for &c in &t.observed {
-            seen[c] += 1;
-        }
     }
     // Expected count in a uniform subset: seen · cap / n.
     let rare = |c: usize| seen[c] * cap < LEAVE_OUT_MIN_TRIALS * n;
@@ -178,7 +178,8 @@ pub fn contributions(
     // influences unknown, as a failed re-solve does.
     let loo_wanted = opts.leave_one_out && p > 2;
     let subset = if loo_wanted {
-        leave_out_subset(set, opts.leave_out_trials, opts.seed)
+        let seen: Vec<usize> = (0..p).map(|c| counts[c][c]).collect();
+        leave_out_subset(set, &seen, opts.leave_out_trials, opts.seed)
     } else {
         None
     };
