@@ -142,8 +142,9 @@ def mean(
         Leave out channels no trial observed instead of raising.
     precondition : bool
         Precondition airm-observed's solver when channels are covered
-        unequally (default); False runs plain L-BFGS (same mean, usually
-        more iterations).
+        unequally, and eliminate rarely observed channels' rows exactly
+        (default); False runs plain L-BFGS (same mean, usually more
+        iterations).
     huber : float
         Threshold of ``"airm-observed-huber"`` as a multiple of the median
         distance of the trials to the masked mean (default 1.5).

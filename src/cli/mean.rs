@@ -125,7 +125,8 @@ pub struct MeanArgs {
     #[arg(long)]
     drop_unobserved: bool,
     /// Run airm-observed's solver without the preconditioner for unequally
-    /// covered channels (plain L-BFGS; the same mean, usually more iterations).
+    /// covered channels and without the elimination of rarely observed
+    /// channels' rows (plain L-BFGS; the same mean, usually more iterations).
     #[arg(long)]
     no_precondition: bool,
     /// Trial labels: a CSV with a header, one row per trial, a `label`

@@ -199,6 +199,7 @@ impl MeanJob {
             positions: self.positions.clone().map(Arc::new),
             warm_start: None,
             precondition: !self.no_precondition,
+            eliminate_rare: true,
             huber: self.huber,
             scale_correction: if self.correct_scale {
                 Some(degrees_of_freedom(self.samples, self.effective_samples)?)

@@ -17,6 +17,7 @@
 //! not pinned by the cost; after solving they are filled by the
 //! maximum-determinant completion ([`crate::diagnose::completion`]).
 
+use super::rare_rows::{self, RareSplit};
 use super::{
     AveragingScheme, Diagnostics, MeanResult, SchemeOptions, StartOutcome, VanishingDirection,
 };
@@ -191,6 +192,15 @@ impl<'a> MaskedKarcherProblem<'a> {
     /// The same problem without the preconditioner: the solver then runs
     /// plain L-BFGS (checks and benchmarks).
     pub fn without_preconditioner(mut self) -> Self {
+        self.coverage_order = None;
+        self
+    }
+
+    /// The same problem with no flat directions and no preconditioner: a
+    /// part of the trials whose other entries are held by the caller
+    /// (`rare_rows`), so a pair this part never observes is not free.
+    pub(crate) fn held_fixed(mut self) -> Self {
+        self.free_pairs.clear();
         self.coverage_order = None;
         self
     }
@@ -580,6 +590,14 @@ impl AveragingScheme for AirmObserved {
         let mut fallbacks: Vec<String> = Vec::new();
         let obs = options.observer.clone();
         let mut runs: Vec<(String, Solution)> = Vec::new();
+        // Rarely observed channels: their rows are eliminated exactly for
+        // each step of the common block (docs/masked-mean.md).
+        let split = if options.precondition && options.eliminate_rare {
+            RareSplit::of(set)
+        } else {
+            None
+        };
+        let mut eliminated: Vec<Option<String>> = Vec::new();
         for (k, (label, x0)) in self.starting_points(set, options).into_iter().enumerate() {
             // Progress is shown for the first start only.
             let observer = if k == 0 {
@@ -587,6 +605,35 @@ impl AveragingScheme for AirmObserved {
             } else {
                 None
             };
+            if let Some(split) = &split {
+                let run = rare_rows::minimize(set, split, &x0, &options.stop, observer);
+                match run {
+                    Some(run) if run.solution.converged() => {
+                        let names: Vec<&str> = split
+                            .rare
+                            .iter()
+                            .map(|&c| set.channels()[c].as_str())
+                            .collect();
+                        eliminated.push(Some(format!(
+                            "rarely observed channel(s) {} (in {} of {} trials): their rows were fitted exactly for every step of the other channels' block ({} inner iterations over those trials, {} evaluations of the whole set); the iteration trace is that block's",
+                            names.join(", "),
+                            split.rare_trials.len(),
+                            set.len(),
+                            run.inner_iterations,
+                            run.outer_evaluations
+                        )));
+                        runs.push((label, run.solution));
+                        continue;
+                    }
+                    Some(run) => fallbacks.push(format!(
+                        "start '{label}': eliminating the rare channels' rows stopped ({:?}, gradient {:.1e}); the joint solver was used",
+                        run.solution.reason, run.solution.gradient_norm
+                    )),
+                    None => fallbacks.push(format!(
+                        "start '{label}': eliminating the rare channels' rows gave up (the start did not suit it, or the rare rows found no minimiser for some common block); the joint solver was used"
+                    )),
+                }
+            }
             let mut sol =
                 lbfgs::minimize(&problem, &x0, &options.stop, observer).ok_or_else(|| {
                     LacunaError::Numerical(format!(
@@ -610,6 +657,7 @@ impl AveragingScheme for AirmObserved {
                 }
             }
             runs.push((label, sol));
+            eliminated.push(None);
         }
         // Report the converged run with the lowest cost (any run if none
         // converged); a later start must beat the current best by more than
@@ -634,6 +682,7 @@ impl AveragingScheme for AirmObserved {
             .notes
             .push(format!("started from the {} rule", runs[best].0));
         diagnostics.notes.extend(fallbacks);
+        diagnostics.notes.extend(eliminated[best].clone());
         diagnostics.unconstrained_pairs = ident.unconstrained_pairs.clone();
         diagnostics.completed_pairs = ident.unconstrained_pairs.len();
         if !ident.unconstrained_pairs.is_empty() {

@@ -16,6 +16,7 @@ mod common_channels;
 mod em;
 mod id;
 mod karcher;
+mod rare_rows;
 pub mod regularize;
 mod robust;
 mod spherical_spline;
@@ -95,6 +96,11 @@ pub struct SchemeOptions {
     /// unequally (docs/masked-mean.md, "Preconditioning"). On by default;
     /// off reproduces the plain L-BFGS run (for checks and benchmarks).
     pub precondition: bool,
+    /// With `precondition`, eliminate the rows of rarely observed channels
+    /// exactly for each step of the others' block when the set suits it
+    /// (docs/masked-mean.md, "Rarely observed channels"). On by default;
+    /// off leaves the band-fitted preconditioner alone (checks, benchmarks).
+    pub eliminate_rare: bool,
 }
 
 impl Default for SchemeOptions {
@@ -115,6 +121,7 @@ impl Default for SchemeOptions {
             scale_correction: None,
             huber: 1.5,
             precondition: true,
+            eliminate_rare: true,
         }
     }
 }
@@ -135,6 +142,7 @@ impl std::fmt::Debug for SchemeOptions {
             .field("regularize", &self.regularize)
             .field("scale_correction", &self.scale_correction)
             .field("precondition", &self.precondition)
+            .field("eliminate_rare", &self.eliminate_rare)
             .finish()
     }
 }

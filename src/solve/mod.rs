@@ -14,6 +14,7 @@
 //! Optim., give `E = X^{1/2} exp(X^{-1/2} ξ X^{-1/2}/2) X^{-1/2}`), so the
 //! L-BFGS memory needs no explicit transport.
 
+pub mod fibre;
 pub mod lbfgs;
 
 use crate::spd::Mat;
