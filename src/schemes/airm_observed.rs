@@ -490,6 +490,74 @@ fn dual_basis(w: &Mat, order: &[usize]) -> Option<Mat> {
     Some(basis)
 }
 
+/// An elimination run that stopped within this factor of the tolerance is
+/// finished by the joint solver from where it stopped (the last digits,
+/// where the inner solves meet their rounding floor).
+const POLISH_WITHIN: f64 = 1e3;
+
+/// The masked mean by elimination of the rare rows (`rare_rows`), finished
+/// by the joint solver when it stopped just short of the tolerance. The
+/// solution and its note, or why it did not serve.
+fn eliminate(
+    set: &TrialSet,
+    split: &RareSplit,
+    joint: &MaskedKarcherProblem,
+    x0: &Mat,
+    options: &SchemeOptions,
+    observer: Option<&(dyn Fn(&IterRecord) + Sync)>,
+) -> std::result::Result<(Solution, String), String> {
+    let run = rare_rows::minimize(set, split, x0, &options.stop, observer).ok_or(
+        "gave up (the start did not suit it, or the rare rows found no minimiser for some common block)",
+    )?;
+    let names: Vec<&str> = split
+        .rare
+        .iter()
+        .map(|&c| set.channels()[c].as_str())
+        .collect();
+    let mut note = format!(
+        "rarely observed channel(s) {} (in {} of {} trials): their rows were fitted exactly for every step of the other channels' block ({} inner iterations over those trials, {} evaluations of the whole set); the iteration trace is that block's",
+        names.join(", "),
+        split.rare_trials.len(),
+        set.len(),
+        run.inner_iterations,
+        run.outer_evaluations
+    );
+    let mut sol = run.solution;
+    if sol.converged() {
+        return Ok((sol, note));
+    }
+    let why = format!(
+        "stopped ({:?}, gradient {:.1e})",
+        sol.reason, sol.gradient_norm
+    );
+    if !(sol.gradient_norm <= POLISH_WITHIN * options.stop.tol) {
+        return Err(why);
+    }
+    let finish = lbfgs::minimize(joint, &sol.x, &options.stop, None)
+        .filter(Solution::converged)
+        .ok_or(why)?;
+    note.push_str(&format!(
+        ", then {} iteration(s) of the joint solver took the gradient from {:.1e} to the tolerance",
+        finish.iterations, sol.gradient_norm
+    ));
+    let (k, e) = (sol.iterations, sol.evaluations);
+    sol.trace
+        .extend(finish.trace.iter().skip(1).map(|r| IterRecord {
+            iteration: r.iteration + k,
+            evaluations: r.evaluations + e,
+            ..r.clone()
+        }));
+    Ok((
+        Solution {
+            iterations: k + finish.iterations,
+            evaluations: e + finish.evaluations,
+            trace: sol.trace,
+            ..finish
+        },
+        note,
+    ))
+}
+
 /// A random congruence of `x`: `W exp(σ Z) Wᵀ`, `Z` symmetric Gaussian.
 fn perturbed(x: &Mat, rng: &mut Rng, sigma: f64) -> Mat {
     let p = x.nrows();
@@ -606,31 +674,14 @@ impl AveragingScheme for AirmObserved {
                 None
             };
             if let Some(split) = &split {
-                let run = rare_rows::minimize(set, split, &x0, &options.stop, observer);
-                match run {
-                    Some(run) if run.solution.converged() => {
-                        let names: Vec<&str> = split
-                            .rare
-                            .iter()
-                            .map(|&c| set.channels()[c].as_str())
-                            .collect();
-                        eliminated.push(Some(format!(
-                            "rarely observed channel(s) {} (in {} of {} trials): their rows were fitted exactly for every step of the other channels' block ({} inner iterations over those trials, {} evaluations of the whole set); the iteration trace is that block's",
-                            names.join(", "),
-                            split.rare_trials.len(),
-                            set.len(),
-                            run.inner_iterations,
-                            run.outer_evaluations
-                        )));
-                        runs.push((label, run.solution));
+                match eliminate(set, split, &problem, &x0, options, observer) {
+                    Ok((sol, note)) => {
+                        eliminated.push(Some(note));
+                        runs.push((label, sol));
                         continue;
                     }
-                    Some(run) => fallbacks.push(format!(
-                        "start '{label}': eliminating the rare channels' rows stopped ({:?}, gradient {:.1e}); the joint solver was used",
-                        run.solution.reason, run.solution.gradient_norm
-                    )),
-                    None => fallbacks.push(format!(
-                        "start '{label}': eliminating the rare channels' rows gave up (the start did not suit it, or the rare rows found no minimiser for some common block); the joint solver was used"
+                    Err(why) => fallbacks.push(format!(
+                        "start '{label}': eliminating the rare channels' rows {why}; the joint solver was used from the start"
                     )),
                 }
             }
