@@ -86,7 +86,7 @@ fn parse() -> Args {
                      ingest:  a simulated 1-hour, 64-channel, 512 Hz BDF (generated once into --file, default in the temp folder)\n\
                               read, then 2 s epochs with 8-30 Hz band-pass, detection and OAS; throughput and peak memory\n\
                      hard:    short windows (T = p + 8), condition 1e5, gain drift, every trial missing 1-6 channels; default 2000x{{32,64}}\n\
-                     rare:    masked sets with channels observed in few trials, plain and preconditioned solver\n\
+                     rare:    masked sets with channels observed in few trials: plain, joint preconditioned, default (eliminated) solver\n\
                      stream:  the streamed masked mean (mean --stream) against held shards on a stack above 256 MiB, peak memory per run; default 2400x128\n\
                      throughput: re-centring and prediction trials/s (4 sessions, 2 classes, 20% of trials missing 1-8 channels); default 10000x{{32,64}}\n\
                      --reference PYTHON runs tests/reference/bench_reference.py with that interpreter on the same data\n\
@@ -110,6 +110,8 @@ fn parse() -> Args {
             vec![(2400, 128)]
         } else if a.mode == "throughput" {
             vec![(10_000, 32), (10_000, 64)]
+        } else if a.mode == "rare" {
+            vec![(600, 8), (600, 16), (2000, 32)]
         } else {
             [100, 10_000]
                 .iter()
@@ -289,23 +291,26 @@ fn run_reference(
     })
 }
 
-/// Rare-channel sets: plain L-BFGS against the preconditioned solver, and
-/// the numpy reference (2 processes) given 20× the preconditioned time.
+/// Rare-channel sets: plain L-BFGS, the band-fitted joint solver and the
+/// default path (rare rows eliminated), and the numpy reference
+/// (2 processes) given 20× the default path's time.
 fn rare(args: &Args) {
     use lacuna::simulate::stacks::rare_channel_set;
     println!(
-        "| N | p | rare channels | plain: iterations | stop | s | preconditioned: iterations | stop | s | reference after 20× that time |"
+        "| N | p | rare channels | plain: iterations | stop | s | joint preconditioned: iterations | stop | s | default: iterations | stop | s | how | reference after 20× the default time |"
     );
-    println!("|---|---|---|---|---|---|---|---|---|---|");
+    println!("|---|---|---|---|---|---|---|---|---|---|---|---|---|---|");
     let workers = args.workers.last().copied().unwrap_or(1);
-    for (n, p) in [(600, 8), (600, 16), (2000, 32)] {
+    for &(n, p) in &args.sizes {
         for rare in [vec![], vec![(0, 16)], vec![(0, 16), (1, 30)]] {
             let set = rare_channel_set(n, p, p + 8, 1e5, &rare, 1);
             let mut cells = Vec::new();
             let mut last = f64::NAN;
-            for precondition in [false, true] {
+            let mut how = String::new();
+            for (precondition, eliminate_rare) in [(false, false), (true, false), (true, true)] {
                 let options = SchemeOptions {
                     precondition,
+                    eliminate_rare,
                     ..SchemeOptions::default()
                 };
                 let t = Instant::now();
@@ -318,11 +323,32 @@ fn rare(args: &Args) {
                         .stop_reason
                         .map_or("-".into(), |s| format!("{s:?}"))
                 ));
+                how = r
+                    .diagnostics
+                    .notes
+                    .iter()
+                    .find_map(|n| {
+                        n.find("fitted exactly").map(|_| {
+                            let inner = n
+                                .split(" inner iterations")
+                                .next()
+                                .and_then(|h| h.rsplit('(').next())
+                                .unwrap_or("?");
+                            format!("eliminated ({inner} inner iterations)")
+                        })
+                    })
+                    .unwrap_or_else(|| {
+                        if r.diagnostics.notes.iter().any(|n| n.contains("gave up")) {
+                            "elimination gave up, joint".into()
+                        } else {
+                            "joint".into()
+                        }
+                    });
             }
             let reference = match &args.reference {
                 Some(py) => match run_reference(py, &set, true, workers, Some(20.0 * last)) {
                     Some(r) if r.converged => format!(
-                        "converged: {} iterations, {:.2} s ({:.1}× the preconditioned time)",
+                        "converged: {} iterations, {:.2} s ({:.1}× the default time)",
                         r.iterations,
                         r.seconds,
                         r.seconds / last
@@ -337,14 +363,15 @@ fn rare(args: &Args) {
             };
             let label: Vec<String> = rare.iter().map(|(c, k)| format!("ch{c} in {k}")).collect();
             println!(
-                "| {n} | {p} | {} | {} | {} | {reference} |",
+                "| {n} | {p} | {} | {} | {} | {} | {how} | {reference} |",
                 if label.is_empty() {
                     "none".into()
                 } else {
                     label.join(", ")
                 },
                 cells[0],
-                cells[1]
+                cells[1],
+                cells[2]
             );
         }
     }

@@ -196,13 +196,30 @@ impl<'a> MaskedKarcherProblem<'a> {
         self
     }
 
-    /// The same problem with no flat directions and no preconditioner: a
-    /// part of the trials whose other entries are held by the caller
-    /// (`rare_rows`), so a pair this part never observes is not free.
-    pub(crate) fn held_fixed(mut self) -> Self {
-        self.free_pairs.clear();
-        self.coverage_order = None;
-        self
+    /// The cost of the trials `keep` alone (weights still those of the
+    /// whole set, so the parts add up to the whole), with no flat
+    /// directions and no preconditioner: the caller (`rare_rows`) holds
+    /// the other entries, so a pair this part never observes is not free.
+    /// Shares the set's blocks instead of copying them.
+    pub(crate) fn part(set: &'a TrialSet, keep: &[usize]) -> Self {
+        let mut problem = Self::new(set).without_preconditioner();
+        problem.free_pairs.clear();
+        let mut wanted = vec![false; set.len()];
+        for &i in keep {
+            wanted[i] = true;
+        }
+        problem.groups.retain_mut(|g| {
+            g.trials.retain(|&i| wanted[i]);
+            !g.trials.is_empty()
+        });
+        problem.items.clear();
+        for (g, grp) in problem.groups.iter().enumerate() {
+            let n = grp.trials.len();
+            for start in (0..n).step_by(CHUNK) {
+                problem.items.push((g, start..(start + CHUNK).min(n)));
+            }
+        }
+        problem
     }
 
     /// Whether the solver gets a preconditioner on this set.

@@ -234,13 +234,10 @@ pub(crate) fn minimize(
     stop: &StopRule,
     observer: Option<&(dyn Fn(&IterRecord) + Sync)>,
 ) -> Option<EliminationRun> {
-    let total: f64 = set.weights().iter().sum();
-    let rare_set = set.select_trials(&split.rare_trials).ok()?;
-    let common_set = set.select_trials(&split.common_trials).ok()?;
     let problem = Reduced {
         split,
-        common: MaskedKarcherProblem::with_weight_total(&common_set, total).held_fixed(),
-        rare: MaskedKarcherProblem::with_weight_total(&rare_set, total).held_fixed(),
+        common: MaskedKarcherProblem::part(set, &split.common_trials),
+        rare: MaskedKarcherProblem::part(set, &split.rare_trials),
         tol: stop.tol,
         state: Mutex::new(State {
             beta: Mat::zeros(0, 0),
@@ -315,9 +312,6 @@ mod tests {
         let set = rare_channel_set(300, 12, 20, 1e5, &[(0, 12)], 4);
         let split = RareSplit::of(&set).expect("channel 0 is rare");
         assert_eq!(split.rare, vec![0]);
-        let total: f64 = set.weights().iter().sum();
-        let rare_set = set.select_trials(&split.rare_trials).unwrap();
-        let common_set = set.select_trials(&split.common_trials).unwrap();
         let x0 = crate::schemes::InitRule::AvailableCase.start(&set);
         let a0 = crate::spd::sub_block(&x0, &split.common);
         let x_cr = Mat::from_fn(11, 1, |j, _| x0[(split.common[j], 0)]);
@@ -325,8 +319,8 @@ mod tests {
         let schur = Mat::from_element(1, 1, x0[(0, 0)] - (x_cr.transpose() * &beta)[(0, 0)]);
         let problem = Reduced {
             split: &split,
-            common: MaskedKarcherProblem::with_weight_total(&common_set, total).held_fixed(),
-            rare: MaskedKarcherProblem::with_weight_total(&rare_set, total).held_fixed(),
+            common: MaskedKarcherProblem::part(&set, &split.common_trials),
+            rare: MaskedKarcherProblem::part(&set, &split.rare_trials),
             tol: 1e-13,
             state: Mutex::new(State {
                 beta,
