@@ -89,7 +89,8 @@ fn velocity(d: &Mat, n_held: usize, t: f64) -> Mat {
 /// Minimises `problem` over the free rows from the factor `w0` (see the
 /// module notes; the first `n_held` columns of `w0` are the held block's),
 /// until the projected gradient norm is at most `tol` or `max_iter`
-/// iterations. `None` when the cost is undefined at `w0`.
+/// iterations. `None` when the cost is undefined at `w0` (or `w0` is not
+/// square with at least `n_held` columns).
 pub fn minimize(
     problem: &dyn SpdProblem,
     w0: &Mat,
@@ -97,6 +98,9 @@ pub fn minimize(
     tol: f64,
     max_iter: usize,
 ) -> Option<FibreSolution> {
+    if n_held > w0.ncols() || w0.nrows() != w0.ncols() {
+        return None;
+    }
     let mut w = w0.clone();
     let mut eval = problem.evaluate(&w)?;
     let mut g = project(&eval.grad, n_held);
