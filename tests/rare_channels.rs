@@ -272,25 +272,14 @@ fn preconditioned_mean_is_thread_count_independent() {
 // Independent reference: scipy's L-BFGS-B over a Cholesky parametrisation of
 // the mean (tests/reference/make_fixtures.py, `masked_rare`; numpy 2.1.3,
 // scipy 1.14.1), on its own sets with channel 0 observed in 8 of 300 trials
-// (p = 8) and 10 of 300 (p = 16). Both of our solvers must land on its
-// optimum (the preconditioner is on for these sets: the coverage is uneven),
-// and so must the default path, which eliminates channel 0's rows.
+// (p = 8) and 10 of 300 (p = 16). Plain L-BFGS and the joint preconditioned
+// solver must land on its optimum (the preconditioner is on for these sets:
+// the coverage is uneven), and so must the default path, which eliminates
+// channel 0's rows.
 #[test]
-fn both_solvers_match_the_scipy_optimum_on_rare_channel_sets() {
-    let f = common::fixture("masked_rare");
-    for case in f["cases"].as_array().unwrap() {
-        let p = case["p"].as_u64().unwrap() as usize;
-        let observed: Vec<Vec<usize>> = serde_json::from_value(case["observed"].clone()).unwrap();
-        let trials: Vec<lacuna::trials::Trial> = observed
-            .into_iter()
-            .zip(case["blocks"].as_array().unwrap())
-            .map(|(o, b)| lacuna::trials::Trial {
-                observed: o,
-                block: common::mat(b),
-            })
-            .collect();
-        let names: Vec<String> = (0..p).map(|c| format!("ch{c}")).collect();
-        let set = TrialSet::new(names, trials, None, "fixture").unwrap();
+fn every_solver_path_matches_the_scipy_optimum_on_rare_channel_sets() {
+    for (set, case) in fixture_sets("masked_rare") {
+        let p = set.n_channels();
         let reference = common::mat(&case["mean"]);
         for path in [Path::Plain, Path::Joint, Path::Default] {
             let r = solve_by(&set, path, 1e-12);
@@ -353,8 +342,9 @@ fn the_fibre_solver_holds_the_common_block_and_refits_the_rare_rows() {
     assert!(sol.iterations > 0);
 }
 
-/// The fixture's cases as trial sets (blocks and observed channels).
-fn fixture_sets(name: &str) -> Vec<TrialSet> {
+/// The fixture's cases as trial sets (blocks and observed channels), each
+/// with its case (for the reference values).
+fn fixture_sets(name: &str) -> Vec<(TrialSet, serde_json::Value)> {
     let f = common::fixture(name);
     f["cases"]
         .as_array()
@@ -373,7 +363,10 @@ fn fixture_sets(name: &str) -> Vec<TrialSet> {
                 })
                 .collect();
             let names: Vec<String> = (0..p).map(|c| format!("ch{c}")).collect();
-            TrialSet::new(names, trials, None, name).unwrap()
+            (
+                TrialSet::new(names, trials, None, name).unwrap(),
+                case.clone(),
+            )
         })
         .collect()
 }
@@ -387,7 +380,7 @@ fn fixture_sets(name: &str) -> Vec<TrialSet> {
 fn every_solver_path_agrees_on_the_masked_fixtures() {
     let mut used = 0;
     for name in ["masked", "masked_free", "masked_rare"] {
-        for (k, set) in fixture_sets(name).iter().enumerate() {
+        for (k, (set, _)) in fixture_sets(name).iter().enumerate() {
             let plain = solve_by(set, Path::Plain, 1e-12);
             for path in [Path::Joint, Path::Default] {
                 let r = solve_by(set, path, 1e-12);
