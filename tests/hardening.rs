@@ -564,9 +564,12 @@ fn orphaned_temporary_files_are_swept() {
 fn thread_pool_failure_is_reported() {
     let bin = env!("CARGO_BIN_EXE_lacuna");
     let inner = format!(
-        "ulimit -u 1; exec {bin} mean --covs {} --mask {} --out /tmp/lacuna-never-written.npy --threads 16",
+        "ulimit -u 1; exec {bin} mean --covs {} --mask {} --out {} --threads 16",
         demo("covs.npy"),
-        demo("mask.csv")
+        demo("mask.csv"),
+        std::env::temp_dir()
+            .join("lacuna-never-written.npy")
+            .display()
     );
     let root = std::process::Command::new("id")
         .arg("-u")

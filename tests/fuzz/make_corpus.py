@@ -1,6 +1,6 @@
 """Seed corpus for tests/fuzz (small valid inputs for every reader).
 
-    /tmp/lacuna-ref/bin/python tests/fuzz/make_corpus.py
+    target/ref/bin/python tests/fuzz/make_corpus.py
 
 Uses numpy and pyedflib (versions pinned in tests/reference/requirements.txt).
 """
