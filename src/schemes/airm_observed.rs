@@ -537,7 +537,7 @@ fn eliminate(
         split.rare_trials.len(),
         set.len(),
         run.inner_iterations,
-        run.outer_evaluations
+        run.solution.evaluations
     );
     let mut sol = run.solution;
     if sol.converged() {
