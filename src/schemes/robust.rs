@@ -110,6 +110,8 @@ fn robust(loss: Loss, set: &TrialSet, options: &SchemeOptions) -> Result<MeanRes
             .sum()
     };
     let mut d = d0;
+    // One copy of the set, its weights replaced at each reweighting.
+    let mut reweighted = set.clone();
     let mut outer = 0;
     let mut inner_iterations = first.diagnostics.iterations;
     let mut converged = false;
@@ -126,7 +128,6 @@ fn robust(loss: Loss, set: &TrialSet, options: &SchemeOptions) -> Result<MeanRes
                 }
             })
             .collect();
-        let mut reweighted = set.clone();
         reweighted.set_weights(w)?;
         let opts = SchemeOptions {
             observer: None,
