@@ -23,17 +23,11 @@
 
 use std::collections::VecDeque;
 
+// Same memory, line search and rounding rules as the joint solver.
+use super::lbfgs::{ARMIJO_C1, CURVATURE_C2, MAX_BACKTRACKS, MEMORY, ROUNDING_BAND};
 use super::{Evaluation, SpdProblem, frob};
 use crate::spd::kernels::sym_eigen;
 use crate::spd::{Mat, symmetrize};
-
-const MEMORY: usize = 8;
-const ARMIJO_C1: f64 = 1e-4;
-const MAX_BACKTRACKS: usize = 40;
-/// Relative band within which cost differences are treated as rounding.
-const ROUNDING_BAND: f64 = 1e-12;
-/// Curvature factor of the approximate Wolfe test inside that band.
-const CURVATURE_C2: f64 = 0.9;
 
 /// Where the fibre solver stopped.
 #[derive(Debug, Clone)]

@@ -38,15 +38,15 @@ use super::{
 use crate::spd::kernels::sym_eigen;
 use crate::spd::{Mat, symmetrize};
 
-const MEMORY: usize = 8;
-const ARMIJO_C1: f64 = 1e-4;
-const MAX_BACKTRACKS: usize = 40;
+pub(super) const MEMORY: usize = 8;
+pub(super) const ARMIJO_C1: f64 = 1e-4;
+pub(super) const MAX_BACKTRACKS: usize = 40;
 /// Longest preconditioned step, in whitened (affine-invariant) units.
 const MAX_STEP: f64 = 1.0;
 /// Relative band within which cost differences are treated as rounding.
-const ROUNDING_BAND: f64 = 1e-12;
+pub(super) const ROUNDING_BAND: f64 = 1e-12;
 /// Curvature factor of the approximate Wolfe test used inside that band.
-const CURVATURE_C2: f64 = 0.9;
+pub(super) const CURVATURE_C2: f64 = 0.9;
 
 /// Observer called after every accepted iterate (progress display).
 pub type Observer<'a> = &'a (dyn Fn(&IterRecord) + Sync);
