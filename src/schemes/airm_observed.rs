@@ -448,13 +448,9 @@ impl SpdProblem for MaskedKarcherProblem<'_> {
 /// mean is preconditioned.
 const COVERAGE_SPREAD: f64 = 0.5;
 
-/// Channels ordered by their weighted share of trials, least first, or
-/// None when some pair is never observed together, or when the pairs'
-/// shares are within a factor of two of each other
-/// (complete data, light dropout): the Hessian model is then close to a
-/// multiple of the identity, which L-BFGS's own scaling already is, and the
-/// preconditioner would only cost time (15 % at N = 5 000, p = 64).
-fn coverage_order(set: &TrialSet, weights: &[f64]) -> Option<Vec<usize>> {
+/// Weighted co-observation: entry (a, b) sums the weights of the trials
+/// that observe channels a and b together.
+pub(super) fn weighted_coverage(set: &TrialSet, weights: &[f64]) -> Mat {
     let p = set.n_channels();
     let mut n = Mat::zeros(p, p);
     for (t, &wi) in set.trials().iter().zip(weights) {
@@ -464,6 +460,18 @@ fn coverage_order(set: &TrialSet, weights: &[f64]) -> Option<Vec<usize>> {
             }
         }
     }
+    n
+}
+
+/// Channels ordered by their weighted share of trials, least first, or
+/// None when some pair is never observed together, or when the pairs'
+/// shares are within a factor of two of each other
+/// (complete data, light dropout): the Hessian model is then close to a
+/// multiple of the identity, which L-BFGS's own scaling already is, and the
+/// preconditioner would only cost time (15 % at N = 5 000, p = 64).
+fn coverage_order(set: &TrialSet, weights: &[f64]) -> Option<Vec<usize>> {
+    let p = set.n_channels();
+    let n = weighted_coverage(set, weights);
     let (lo, hi) = n
         .iter()
         .fold((f64::INFINITY, 0.0f64), |(l, h), &v| (l.min(v), h.max(v)));

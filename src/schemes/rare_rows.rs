@@ -67,14 +67,7 @@ impl RareSplit {
     pub fn of(set: &TrialSet) -> Option<RareSplit> {
         let p = set.n_channels();
         let w = set.normalized_weights();
-        let mut n = Mat::zeros(p, p);
-        for (t, &wi) in set.trials().iter().zip(&w) {
-            for &a in &t.observed {
-                for &b in &t.observed {
-                    n[(a, b)] += wi;
-                }
-            }
-        }
+        let n = super::airm_observed::weighted_coverage(set, &w);
         if n.iter().any(|&v| !(v > 0.0)) {
             return None;
         }
